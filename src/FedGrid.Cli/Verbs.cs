@@ -1,0 +1,12 @@
+using System.CommandLine;
+
+namespace FedGrid.Cli;
+
+/// <summary>The verbs of the <c>fedgrid</c> command; each lives in its own file under Commands/.</summary>
+internal static class Verbs
+{
+    public static IEnumerable<Command> All()
+    {
+        yield return Commands.FlowCommand.Create();
+    }
+}
