@@ -1,0 +1,10 @@
+namespace FedGrid.Bench.Versus;
+
+/// <summary>Every side-by-side case, in the order printed. Add one line per case family.</summary>
+internal static class VersusCases
+{
+    public static IEnumerable<IVersusCase> All()
+    {
+        yield break;
+    }
+}
