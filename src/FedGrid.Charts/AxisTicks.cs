@@ -3,8 +3,9 @@ using System.Globalization;
 namespace FedGrid.Charts;
 
 /// <summary>
-/// Tick values of one axis: a step of 1, 2 or 5 times a power of ten, after Heckbert's
-/// "Nice numbers for graph labels" (Graphics Gems, 1990).
+/// Tick values of one axis: a step of 1, 2 or 5 times a power of ten, a variant of Heckbert's
+/// "Nice numbers for graph labels" (Graphics Gems, 1990): the step is the data range divided by
+/// the wanted intervals, rounded to the nearest nice number.
 /// </summary>
 public sealed record AxisTicks
 {
@@ -47,7 +48,7 @@ public sealed record AxisTicks
         double f = value / pow;
         double nf = round
             ? (f < 1.5 ? 1 : f < 3 ? 2 : f < 7 ? 5 : 10)
-            : (f <= 1 ? 1 : f <= 2 ? 2 : f <= 5 ? 5 : 10);
+            : (f <= 1 + 1e-9 ? 1 : f <= 2 + 1e-9 ? 2 : f <= 5 + 1e-9 ? 5 : 10);
         return nf * pow;
     }
 
@@ -72,8 +73,7 @@ public sealed record AxisTicks
             double pad = min == 0 ? 1 : Math.Abs(min) * 0.1;
             min -= pad; max += pad;
         }
-        double range = NiceNumber(max - min, round: false);
-        double step = NiceNumber(range / (targetCount - 1), round: true);
+        double step = NiceNumber((max - min) / (targetCount - 1), round: true);
         int decimals = Math.Max(0, -(int)Math.Floor(Math.Log10(step)));
         double first = widen ? Math.Floor(min / step + 1e-9) * step : Math.Ceiling(min / step - 1e-9) * step;
         double last = widen ? Math.Ceiling(max / step - 1e-9) * step : Math.Floor(max / step + 1e-9) * step;
