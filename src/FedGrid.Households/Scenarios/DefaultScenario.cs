@@ -34,7 +34,7 @@ public static class DefaultScenario
     private static readonly string[] LoadBuses = ["B02", "B03", "B04", "B06", "B08", "B10", "B11", "B13", "B14", "B16", "B17"];
     private static readonly int[] HouseholdsPerBus = [3, 3, 2, 3, 3, 3, 3, 3, 3, 3, 3];
 
-    /// <summary>The invented 0.4 kV feeder (base 0.1 MVA). Voltage limits 0.94–1.06 pu; transformer secondary held at 1.03 pu.</summary>
+    /// <summary>The invented 0.4 kV feeder (base 0.1 MVA). Voltage limits 0.94–1.06 pu; transformer secondary held at 1.02 pu.</summary>
     public static Feeder CreateFeeder()
     {
         const double kv = 0.4, vmin = 0.94, vmax = 1.06;
@@ -49,7 +49,7 @@ public static class DefaultScenario
         static Line Cable(string from, string to, double metres, double rPerKm, double xPerKm, double amps) =>
             new(from, to, rPerKm * metres / 1000, xPerKm * metres / 1000, amps);
         var lines = new List<Line> { Cable("B00", "B01", 30, 0.164, 0.070, 300) }; // 185 mm²
-        for (int i = 2; i <= 8; i++) lines.Add(Cable($"B{i - 1:00}", $"B{i:00}", 45, 0.253, 0.071, 240)); // 120 mm²
+        for (int i = 2; i <= 8; i++) lines.Add(Cable($"B{i - 1:00}", $"B{i:00}", 50, 0.320, 0.075, 225)); // 95 mm²
         int[] tee = [3, 5, 7];
         for (int l = 0; l < 3; l++)
         {
@@ -57,11 +57,11 @@ public static class DefaultScenario
             for (int k = 1; k <= 3; k++)
             {
                 string id = $"B{8 + 3 * l + k:00}";
-                lines.Add(Cable(prev, id, 40, 0.443, 0.075, 170)); // 70 mm²
+                lines.Add(Cable(prev, id, 40, 0.641, 0.080, 140)); // 50 mm²
                 prev = id;
             }
         }
-        var substation = new Substation("B00", 1.03, 130);
+        var substation = new Substation("B00", 1.02, 130);
         return Feeder.Create(FeederName, buses, lines, substation, baseMva: 0.1,
             source: "invented for FedGrid's default scenario (no real network)");
     }
@@ -84,9 +84,9 @@ public static class DefaultScenario
             {
                 n++;
                 var appliances = ImmutableArray.CreateBuilder<Appliance>();
-                if (n % 3 != 0)
+                if (n % 3 == 1)
                     appliances.Add(new DeferrableLoad("vehicle", n % 4 == 1 ? 7.2 : 3.7, 0.02, 1.0));
-                if (n % 5 != 0)
+                if (n % 2 == 1 || n % 5 == 0)
                     appliances.Add(new ThermalStorage("water heater", Math.Round(rng.Uniform(150, 250) / 10) * 10, 3.0, 60, 45, 12, 20,
                         Math.Round(rng.Uniform(0.0015, 0.0022), 5), 0.5));
                 if (n % 7 == 3)

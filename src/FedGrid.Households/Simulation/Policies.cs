@@ -25,15 +25,33 @@ public sealed class NoControlPolicy : IDemandResponsePolicy
 }
 
 /// <summary>
-/// A simple price-responsive rule: when the price is at or above <see cref="ThresholdPerKwh"/>,
-/// every household goes to its minimum flexible power; otherwise it runs at desired. With a
-/// time-of-use tariff and the threshold at its peak price this means "minimum during peak".
+/// A simple price-responsive rule: while the price is at or above <see cref="ThresholdPerKwh"/>,
+/// every household runs its flexible load at its minimum; otherwise at desired. So that all the
+/// deferred load does not come back in the same slot when the price falls (the synchronised
+/// rebound known from direct load control, common practice), household m keeps its minimum for
+/// another (m mod (<see cref="ReleaseSpreadSlots"/> + 1)) slots after the last high-price slot — a
+/// fixed, staggered release. With a time-of-use tariff and the threshold at its peak price this is
+/// "minimum during peak, staggered restart".
 /// </summary>
-/// <param name="thresholdPerKwh">Price from which load is held at minimum, $ per kWh.</param>
-public sealed class PriceThresholdPolicy(double thresholdPerKwh) : IDemandResponsePolicy
+public sealed class PriceThresholdPolicy : IDemandResponsePolicy
 {
+    private int _lastHighSlot = int.MinValue / 2;
+
+    /// <summary>Creates the rule.</summary>
+    /// <param name="thresholdPerKwh">Price from which flexible load is held at minimum, $ per kWh.</param>
+    /// <param name="releaseSpreadSlots">Largest extra wait after a high-price period, slots (0 = everyone restarts at once).</param>
+    public PriceThresholdPolicy(double thresholdPerKwh, int releaseSpreadSlots = 0)
+    {
+        ArgumentOutOfRangeException.ThrowIfNegative(releaseSpreadSlots);
+        ThresholdPerKwh = thresholdPerKwh;
+        ReleaseSpreadSlots = releaseSpreadSlots;
+    }
+
     /// <summary>Price from which load is held at minimum, $ per kWh.</summary>
-    public double ThresholdPerKwh { get; } = thresholdPerKwh;
+    public double ThresholdPerKwh { get; }
+
+    /// <summary>Largest extra wait after a high-price period, slots.</summary>
+    public int ReleaseSpreadSlots { get; }
 
     /// <inheritdoc />
     public string Name => "rule";
@@ -42,6 +60,12 @@ public sealed class PriceThresholdPolicy(double thresholdPerKwh) : IDemandRespon
     public void Decide(DemandResponseEnvironment environment, Span<double> setpointsKw)
     {
         ArgumentNullException.ThrowIfNull(environment);
-        (environment.PricePerKwh >= ThresholdPerKwh ? environment.FlexMinKw : environment.FlexDesiredKw).CopyTo(setpointsKw);
+        int slot = environment.Slot;
+        if (slot < _lastHighSlot) _lastHighSlot = int.MinValue / 2; // the environment was reset
+        if (environment.PricePerKwh >= ThresholdPerKwh) _lastHighSlot = slot;
+        int since = slot - _lastHighSlot; // 0 while the price is high
+        ReadOnlySpan<double> min = environment.FlexMinKw, desired = environment.FlexDesiredKw;
+        for (int m = 0; m < setpointsKw.Length; m++)
+            setpointsKw[m] = since <= m % (ReleaseSpreadSlots + 1) ? min[m] : desired[m];
     }
 }
