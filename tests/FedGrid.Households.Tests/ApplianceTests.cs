@@ -39,6 +39,7 @@ public class DeferrableLoadTests
         env.Step(sp, r);
         env.Step(sp, r);
         Assert.Equal(2, env.Slot);
+        Assert.Equal(new ChargingSession(2, 10, 6), env.CurrentSession(0));
         Assert.Equal(6, env.DeferrableRemainingKwh[0], 12);
         Assert.Equal(7.2, env.FlexDesiredKw[0], 12);
         var mins = new List<double>();
@@ -55,6 +56,7 @@ public class DeferrableLoadTests
         Assert.Equal([0, 0, 0, 0, 2.4, 7.2, 7.2, 7.2], mins.Select(m => Math.Round(m, 9)));
         Assert.Equal(0, env.DeferrableRemainingKwh[0], 12);
         Assert.Equal(0, env.FlexDesiredKw[0]);
+        Assert.Null(env.CurrentSession(0));
     }
 
     [Fact]
@@ -187,5 +189,28 @@ public class CurtailableAndSplitTests
         Assert.Equal(Math.Min(thDes, thMin + 1.0), r.ThermalKw[0], 12);
         Assert.Equal(cuMin + Math.Max(0, 1.0 - (thDes - thMin)), r.CurtailableKw[0], 12);
         Assert.Equal(evMin, r.DeferrableKw[0], 12);
+    }
+}
+
+public class HouseholdTests
+{
+    [Fact]
+    public void Reactive_power_per_kW_follows_the_power_factor()
+    {
+        // tan(acos(0.95)) = 0.328684 (trigonometry); unity power factor draws none.
+        Assert.Equal(0.328684, TestFeeders.Home("h").KvarPerKw, 6);
+        Assert.Equal(0, (TestFeeders.Home("h") with { PowerFactor = 1.0 }).KvarPerKw);
+    }
+
+    [Fact]
+    public void Appliances_are_found_by_kind()
+    {
+        var ev = new DeferrableLoad("vehicle", 7, 0.02, 1);
+        var pump = new CurtailableLoad("pool pump", 1.1, 0.5, 0.03, CurtailableUse.PoolPump);
+        var h = TestFeeders.Home("h", pump, ev);
+        Assert.Same(ev, h.Deferrable);
+        Assert.Same(pump, h.Curtailable);
+        Assert.Null(h.Thermal);
+        Assert.Equal(("deferrable", "curtailable"), (ev.Kind, pump.Kind));
     }
 }

@@ -40,6 +40,11 @@ public class EnvironmentTests
         Assert.True(r.Converged);
         // Power balance: import = households + fixed shop load + line losses.
         Assert.Equal(r.HouseholdKw.Sum() + 3.0 + r.LossKw, r.SubstationImportKw, 6);
+        // Reactive balance: each household draws P·tan(acos(pf)); the shop 1 kvar; plus the lines' reactive loss.
+        double q = 1.0;
+        for (int i = 0; i < sp.Length; i++) q += r.HouseholdKw[i] * Math.Tan(Math.Acos(scenario.Households[i].PowerFactor));
+        var net = scenario.Feeder.Network;
+        Assert.Equal(q + net.ToKw(r.PowerFlow.ReactiveLossPu), net.ToKw(r.PowerFlow.SubstationQPu), 6);
         Assert.True(r.LossKw > 0);
         Assert.Equal(1.02, r.PowerFlow.VoltagePu[scenario.Feeder.IndexOf("B00")], 9);
         Assert.True(r.MinVoltagePu < 1.02);

@@ -198,6 +198,14 @@ public sealed class DemandResponseEnvironment
     /// <summary>Stored energy above inlet of each household's tank, kWh (0 without one).</summary>
     public ReadOnlySpan<double> TankEnergyKwh => _tankEnergy;
 
+    /// <summary>
+    /// The charging session in progress at the current slot for a household (null when none): with
+    /// <see cref="DeferrableRemainingKwh"/> and <see cref="TankEnergyKwh"/> this is the appliance state a
+    /// perfect-foresight optimum starting at the current slot needs.
+    /// </summary>
+    public ChargingSession? CurrentSession(int household) =>
+        _evStarted[household] ? _scenario.Traces[household].Sessions[_evSession[household]] : null;
+
     /// <summary>Minimum and desired power of one appliance kind of a household in the current slot (zeros when absent).</summary>
     public (double MinKw, double DesiredKw) ApplianceBounds(int household, ApplianceKind kind) =>
         (_appMin[household * Kinds + (int)kind], _appDes[household * Kinds + (int)kind]);
