@@ -85,7 +85,7 @@ internal static class DemoCommand
             return CliRunner.ExitOk;
         }
         var net = scenario.Feeder.Network;
-        stdout.WriteLine($"Default scenario: feeder {scenario.Feeder.Name} ({scenario.Feeder.Buses.Count} buses, 0.4 kV), {scenario.Households.Length} households, " +
+        stdout.WriteLine($"Default scenario: feeder {scenario.Feeder.Name} ({scenario.Feeder.Buses.Count} buses, {scenario.Feeder.Buses[0].BaseKv:0.###} kV), {scenario.Households.Length} households, " +
                          $"{tariff.Name}, {options.Days} days from {scenario.Calendar.FirstDay}, seed {options.Seed}");
         stdout.WriteLine($"Limits: substation import {scenario.Feeder.Substation.ImportLimitKw:0} kW, voltage {net.VMinPu.Min():0.00}-{net.VMaxPu.Max():0.00} pu, cable ampacities");
         stdout.WriteLine();

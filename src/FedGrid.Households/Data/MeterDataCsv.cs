@@ -60,7 +60,7 @@ public sealed record MeterData(int SlotCount, DayOfWeek? FirstDay, ImmutableArra
             if (i < 0) throw new ArgumentException($"meter data for household '{m.HouseholdId}', which scenario '{scenario.Name}' does not have");
             traces[i] = traces[i] with { BaseKw = m.BaseKw, Occupied = m.Occupied.IsDefault ? traces[i].Occupied : m.Occupied };
         }
-        return scenario with { Traces = traces.MoveToImmutable(), Seed = scenario.Seed };
+        return scenario with { Traces = traces.MoveToImmutable() };
     }
 }
 
