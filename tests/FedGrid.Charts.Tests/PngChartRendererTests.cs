@@ -209,6 +209,7 @@ public sealed class PngChartRendererTests
         {
             File.WriteAllBytes(path, png);
             File.WriteAllText(Path.ChangeExtension(path, ".svg"), SvgChartRenderer.Render(chart, 800, 480));
+            File.WriteAllBytes(Path.ChangeExtension(path, ".small.png"), PngChartRenderer.Render(chart, 420, 260));
         }
     }
 }
