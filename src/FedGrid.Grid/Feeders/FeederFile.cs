@@ -169,15 +169,14 @@ public static class FeederFile
         {
             if (root.ValueKind != JsonValueKind.Object)
                 throw new FeederValidationException([new FeederProblem(prefix + "$", $"expected a JSON object at the top level, got {Describe(root.ValueKind)}")]);
-            CheckFields(root, "$", TopFields);
-
             string? format = ReadString(root, "$", "format", required: true);
             if (format is not null && format != FormatName)
                 Add("$.format", $"expected \"{FormatName}\", got \"{format}\" (not a FedGrid feeder file)");
             double? version = ReadNumber(root, "$", "version", required: true);
             if (version is { } v && v != CurrentVersion)
                 Add("$.version", $"unsupported version {v}; this reader knows version {CurrentVersion}");
-            if (_problems.Count > 0) throw new FeederValidationException(_problems);
+            if (_problems.Count > 0) throw new FeederValidationException(_problems); // not our format: say only that
+            CheckFields(root, "$", TopFields);
 
             string name = ReadString(root, "$", "name", required: true) ?? "";
             string? source = ReadString(root, "$", "source", required: false);
