@@ -65,7 +65,7 @@ internal static class VersusRunner
         foreach (VersusResult r in results)
         {
             string extra = r.Extra is null ? "" : string.Join(", ", r.Extra.Select(kv => string.Create(inv, $"{kv.Key}={kv.Value:G4}")));
-            sb.AppendLine(inv, $"{r.Case,-18} {r.OursMedianMs,10:F4} {Fmt(r.ReferenceMedianMs, "F3"),13} {Fmt(r.Speedup, "F1"),9} {Fmt(r.MaxObjectiveRelDiff, "E2"),13}  {extra}");
+            sb.AppendLine(inv, $"{r.Case,-18} {r.OursMedianMs,10:F4} {Fmt(r.ReferenceMedianMs, "F3"),13} {Fmt(r.Speedup, "F1"),9} {Fmt(r.MaxObjectiveRelDiff, "0.00E+0"),13}  {extra}");
         }
         return sb.ToString();
     }
