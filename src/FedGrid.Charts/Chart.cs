@@ -33,19 +33,19 @@ public static class Palette
     public static readonly ChartColor Amber = new(0xE6, 0x9F, 0x00);
     /// <summary>Bluish green, #009e73.</summary>
     public static readonly ChartColor Fern = new(0x00, 0x9E, 0x73);
-    /// <summary>Vermilion, #d55e00; the default for limits.</summary>
+    /// <summary>Vermilion, #d55e00.</summary>
     public static readonly ChartColor Rust = new(0xD5, 0x5E, 0x00);
     /// <summary>Reddish purple, #cc79a7.</summary>
     public static readonly ChartColor Orchid = new(0xCC, 0x79, 0xA7);
     /// <summary>Light blue, #56b4e9.</summary>
     public static readonly ChartColor Sky = new(0x56, 0xB4, 0xE9);
-    /// <summary>Yellow, #f0e442 (low contrast on white: used last).</summary>
+    /// <summary>Yellow, #f0e442 (low contrast on white: used late).</summary>
     public static readonly ChartColor Lemon = new(0xF0, 0xE4, 0x42);
-    /// <summary>Black, #000000.</summary>
+    /// <summary>Black, #000000; the default for reference lines (dashed), last for series.</summary>
     public static readonly ChartColor Ink = new(0x00, 0x00, 0x00);
 
     /// <summary>The colours in the order series receive them.</summary>
-    public static IReadOnlyList<ChartColor> SeriesOrder { get; } = [Ocean, Amber, Fern, Rust, Orchid, Sky, Ink, Lemon];
+    public static IReadOnlyList<ChartColor> SeriesOrder { get; } = [Ocean, Amber, Fern, Rust, Orchid, Sky, Lemon, Ink];
 
     /// <summary>The colour of the series at <paramref name="index"/> (cycles after eight).</summary>
     public static ChartColor ForIndex(int index) => SeriesOrder[((index % SeriesOrder.Count) + SeriesOrder.Count) % SeriesOrder.Count];
@@ -98,7 +98,7 @@ public sealed record Series
 /// <summary>A dashed horizontal line across the plot, e.g. a voltage or import limit.</summary>
 /// <param name="Label">Legend text.</param>
 /// <param name="Y">Height in data units.</param>
-/// <param name="Color">Colour; null gives <see cref="Palette.Rust"/>.</param>
+/// <param name="Color">Colour; null gives <see cref="Palette.Ink"/>.</param>
 public sealed record ReferenceLine(string Label, double Y, ChartColor? Color = null);
 
 /// <summary>A fixed axis range in data units; <paramref name="Min"/> must be below <paramref name="Max"/>.</summary>

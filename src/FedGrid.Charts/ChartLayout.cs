@@ -63,19 +63,19 @@ public sealed class ChartLayout
         var (xr, yr) = DataRanges(chart);
         double top = pad + (chart.Title.Length > 0 ? glyphH + pad : 0);
         double bottom = height - pad - (chart.XLabel.Length > 0 ? glyphH + 6 * s : 0) - glyphH - 3 * s - tick;
-        l.YTicks = Ticks(yr, chart.YRange, Math.Clamp((int)((bottom - top) / (36 * s)), 3, 10));
+        l.YTicks = Ticks(yr, chart.YRange, Math.Clamp((int)((bottom - top) / (26 * s)), 3, 12));
 
         int yLabelW = l.YTicks.Values.Max(v => l.TextWidth(l.YTicks.Format(v)));
         double left = pad + (chart.YLabel.Length > 0 ? glyphH + 6 * s : 0) + yLabelW + 3 * s + tick;
         int legendW = 0;
         foreach (var e in chart.Series) legendW = Math.Max(legendW, l.TextWidth(e.Name));
         foreach (var e in chart.ReferenceLines) legendW = Math.Max(legendW, l.TextWidth(e.Label));
-        legendW = Math.Min(legendW, width / 4);
+        legendW = Math.Min(legendW, width * 3 / 10);
         l.Legend = legendW;
         double right = width - pad - (legendW > 0 ? 22 * s + legendW + pad : pad);
         if (right - left < 40 || bottom - top < 30) throw new ArgumentOutOfRangeException(nameof(width), $"a {width} x {height} canvas leaves no room for the plot of '{chart.Title}'");
 
-        int target = Math.Clamp((int)((right - left) / (60 * s)), 2, 12);
+        int target = Math.Clamp((int)((right - left) / (36 * s)), 2, 16);
         while (true)
         {
             l.XTicks = Ticks(xr, chart.XRange, target);

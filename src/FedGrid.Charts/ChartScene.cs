@@ -66,7 +66,7 @@ internal static class ChartScene
         for (int i = 0; i < chart.ReferenceLines.Count; i++)
         {
             var line = chart.ReferenceLines[i];
-            var color = line.Color ?? Palette.Rust;
+            var color = line.Color ?? Palette.Ink;
             var items = new List<Shape>();
             if (double.IsFinite(line.Y))
                 items.Add(new PathShape([l.PlotLeft, l.MapY(line.Y), l.PlotRight, l.MapY(line.Y)], color, lineW, true, true));

@@ -66,7 +66,7 @@ internal sealed class RgbCanvas
         int length = (BitmapFont.Advance * text.Length - 1) * scale;
         for (int i = 0; i < text.Length; i++)
             for (int col = 0; col < BitmapFont.GlyphWidth; col++)
-                for (int row = 0; row < BitmapFont.GlyphHeight; row++)
+                for (int row = 0; row < BitmapFont.Rows; row++)
                 {
                     if (!BitmapFont.Dot(text[i], col, row)) continue;
                     int u = (i * BitmapFont.Advance + col) * scale, v = row * scale;

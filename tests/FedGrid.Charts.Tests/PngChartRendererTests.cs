@@ -167,15 +167,8 @@ public sealed class PngChartRendererTests
             var points = new List<(int X, int Y)> { (0, 0), (516, 300), ((int)layout.MapX(0.5), (int)layout.MapY(0.5)), ((int)layout.MapX(2), (int)layout.MapY(0.4)) };
             var rng = new Random(3);
             for (int i = 0; i < 40; i++) points.Add((rng.Next(517), rng.Next(301)));
-            string script = Path.Combine(AppContext.BaseDirectory, "reference", "png_check.py");
-            var psi = new ProcessStartInfo("/usr/bin/python3") { RedirectStandardOutput = true, RedirectStandardError = true };
-            psi.ArgumentList.Add(script);
-            psi.ArgumentList.Add(file);
-            foreach (var (x, y) in points) psi.ArgumentList.Add($"{x},{y}");
-            using var p = Process.Start(psi)!;
-            string stdout = p.StandardOutput.ReadToEnd(), stderr = p.StandardError.ReadToEnd();
-            p.WaitForExit();
-            Assert.True(p.ExitCode == 0, $"png_check.py failed: {stderr}");
+            var (exit, stdout, stderr) = RunPngCheck(file, points.Select(p => $"{p.X},{p.Y}"));
+            Assert.True(exit == 0, $"png_check.py failed: {stderr}");
             var lines = stdout.Split('\n', StringSplitOptions.RemoveEmptyEntries);
             Assert.Equal("517 301", lines[0]);
             Assert.Equal(points.Count + 1, lines.Length);
@@ -188,6 +181,38 @@ public sealed class PngChartRendererTests
             Assert.Equal($"{Probe.R} {Probe.G} {Probe.B}", lines[4]); // the point (2, 0.4)
         }
         finally { File.Delete(file); }
+    }
+
+    [Fact]
+    public void PythonCheck_RejectsACorruptedChunk()
+    {
+        // The outside check must be able to fail: one flipped bit in the IDAT data breaks its CRC.
+        var png = PngChartRenderer.Render(new Chart("t", "x", "y", []), 200, 150);
+        png[8 + 25 + 8 + 10] ^= 0x01; // signature, IHDR chunk (12 + 13 bytes), IDAT length and type, then data
+        Assert.ThrowsAny<Exception>(() => PngReader.Read(png));
+        string file = Path.Combine(Path.GetTempPath(), $"fedgrid-charts-{Guid.NewGuid():N}.png");
+        File.WriteAllBytes(file, png);
+        try
+        {
+            var (exit, _, stderr) = RunPngCheck(file, []);
+            Assert.Equal(1, exit);
+            Assert.Contains("CRC mismatch in chunk b'IDAT'", stderr);
+        }
+        finally { File.Delete(file); }
+    }
+
+    private static (int Exit, string Stdout, string Stderr) RunPngCheck(string file, IEnumerable<string> points)
+    {
+        string script = Path.Combine(AppContext.BaseDirectory, "reference", "png_check.py");
+        var psi = new ProcessStartInfo("/usr/bin/python3") { RedirectStandardOutput = true, RedirectStandardError = true };
+        psi.ArgumentList.Add(script);
+        psi.ArgumentList.Add(file);
+        foreach (var point in points) psi.ArgumentList.Add(point);
+        using var p = Process.Start(psi)!;
+        var stderrTask = p.StandardError.ReadToEndAsync();
+        string stdout = p.StandardOutput.ReadToEnd();
+        p.WaitForExit();
+        return (p.ExitCode, stdout, stderrTask.Result);
     }
 
     [Fact]
@@ -209,6 +234,7 @@ public sealed class PngChartRendererTests
         {
             File.WriteAllBytes(path, png);
             File.WriteAllText(Path.ChangeExtension(path, ".svg"), SvgChartRenderer.Render(chart, 800, 480));
+            File.WriteAllBytes(Path.ChangeExtension(path, ".small.png"), PngChartRenderer.Render(chart, 420, 260));
         }
     }
 }
