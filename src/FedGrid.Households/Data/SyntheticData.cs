@@ -1,5 +1,5 @@
 using System.Collections.Immutable;
-using FedGrid.Households.Internal;
+using FedGrid.Grid.Numerics;
 
 namespace FedGrid.Households.Data;
 
@@ -19,7 +19,7 @@ namespace FedGrid.Households.Data;
 /// <item>Curtailable appliance: space conditioning wants 40–100 % of rated power while home and awake from 16:00 (and
 /// all day on weekends at home); a pool pump wants rated power 10:00–16:00.</item>
 /// </list>
-/// Each household draws from its own stream derived from the seed and its position, so traces do not depend on each other.
+/// Each household draws from its own stream of <see cref="SeededRandom"/> (seed, position in the list), so traces do not depend on each other.
 /// </summary>
 public static class SyntheticData
 {
@@ -29,19 +29,21 @@ public static class SyntheticData
         ArgumentNullException.ThrowIfNull(households);
         var traces = ImmutableArray.CreateBuilder<HouseholdTrace>(households.Count);
         for (int i = 0; i < households.Count; i++)
-            traces.Add(Generate(households[i], days, calendar, SplitMix64.Derive(seed, (ulong)i)));
+            traces.Add(Generate(households[i], days, calendar, SeededRandom.ForStream(seed, (ulong)i)));
         return traces.MoveToImmutable();
     }
 
     /// <summary>Generates one household's trace from its own seed.</summary>
-    public static HouseholdTrace Generate(Household household, int days, SlotCalendar calendar, ulong seed)
+    public static HouseholdTrace Generate(Household household, int days, SlotCalendar calendar, ulong seed) =>
+        Generate(household, days, calendar, new SeededRandom(seed));
+
+    private static HouseholdTrace Generate(Household household, int days, SlotCalendar calendar, SeededRandom rng)
     {
         ArgumentNullException.ThrowIfNull(household);
         ArgumentNullException.ThrowIfNull(calendar);
         ArgumentOutOfRangeException.ThrowIfNegativeOrZero(days);
         const int D = SlotCalendar.SlotsPerDay;
         int n = days * D;
-        var rng = new SplitMix64(seed);
         var occupied = new bool[n];
         var awake = new bool[n];
         var returns = new List<(int Slot, bool Weekend)>();
@@ -60,12 +62,12 @@ public static class SyntheticData
                 awake[s0 + s] = s >= wake && s < bed;
             }
             int leave = -1, back = -1;
-            if (!weekend && !rng.Chance(o.HomeWeekdayProbability))
+            if (!weekend && !(rng.NextDouble() < o.HomeWeekdayProbability))
             {
                 leave = Math.Clamp(o.LeaveSlot + rng.NextInt(-2, 3), wake + 1, D - 2);
                 back = Math.Clamp(o.ReturnSlot + rng.NextInt(-3, 4), leave + 1, D - 1);
             }
-            else if (weekend && rng.Chance(o.WeekendOutingProbability))
+            else if (weekend && rng.NextDouble() < o.WeekendOutingProbability)
             {
                 leave = rng.NextInt(40, 60);
                 back = Math.Min(D - 1, leave + rng.NextInt(8, 21));
@@ -98,10 +100,10 @@ public static class SyntheticData
                 double h = s * SlotCalendar.SlotHours;
                 kw += (weekend ? 1.5 : 1.0) * p.DaytimeKw;
                 kw += p.EveningKw * Bump(h, 19.0, 2.5);
-                if (kettle == 0 && rng.Chance(0.03))
+                if (kettle == 0 && rng.NextDouble() < 0.03)
                 {
                     kettle = rng.NextInt(1, 3);
-                    kettleKw = rng.Uniform(1.5, 2.5);
+                    kettleKw = rng.NextDouble(1.5, 2.5);
                 }
             }
             if (kettle > 0)
@@ -124,13 +126,13 @@ public static class SyntheticData
                 if (wakeSlot >= 0)
                 {
                     int shower = Math.Min(s0 + D - 1, wakeSlot + rng.NextInt(0, 3));
-                    if (occupied[shower]) draws[shower] += rng.Uniform(30, 60);
+                    if (occupied[shower]) draws[shower] += rng.NextDouble(30, 60);
                 }
                 int meal = s0 + 76 + rng.NextInt(-2, 5);
-                if (meal < n && occupied[meal] && awake[meal]) draws[meal] += rng.Uniform(10, 30);
+                if (meal < n && occupied[meal] && awake[meal]) draws[meal] += rng.NextDouble(10, 30);
             }
             for (int t = 0; t < n; t++)
-                if (occupied[t] && awake[t] && rng.Chance(0.06)) draws[t] += rng.Uniform(3, 8);
+                if (occupied[t] && awake[t] && rng.NextDouble() < 0.06) draws[t] += rng.NextDouble(3, 8);
         }
 
         // Charging sessions: one per return home, wanted by the next departure.
@@ -147,7 +149,7 @@ public static class SyntheticData
                     if (dep > arrive) { nextLeave = dep; break; }
                 int fallback = (SlotCalendar.DayOf(arrive) + 1) * D + (weekend ? 32 : 30);
                 int deadline = nextLeave > arrive && nextLeave <= fallback ? nextLeave : fallback;
-                double energy = weekend ? rng.Uniform(2, 8) : rng.Uniform(4, 14);
+                double energy = weekend ? rng.NextDouble(2, 8) : rng.NextDouble(4, 14);
                 sessions.Add(new ChargingSession(arrive, deadline, Math.Round(energy, 3)));
                 lastDeadline = deadline;
             }
@@ -157,11 +159,11 @@ public static class SyntheticData
         var curtail = new double[n];
         if (household.Curtailable is { } c)
         {
-            double level = rng.Uniform(0.4, 1.0);
+            double level = rng.NextDouble(0.4, 1.0);
             for (int t = 0; t < n; t++)
             {
                 int s = SlotCalendar.SlotOfDay(t);
-                if (SlotCalendar.SlotOfDay(t) == 0) level = rng.Uniform(0.4, 1.0);
+                if (SlotCalendar.SlotOfDay(t) == 0) level = rng.NextDouble(0.4, 1.0);
                 curtail[t] = c.Use switch
                 {
                     CurtailableUse.PoolPump => s >= 40 && s < 64 ? c.RatedKw : 0,
@@ -170,7 +172,7 @@ public static class SyntheticData
             }
         }
 
-        double tank0 = household.Thermal is { } th ? Math.Round(rng.Uniform(th.LowerComfortC + 5, th.SetpointC), 2) : 0;
+        double tank0 = household.Thermal is { } th ? Math.Round(rng.NextDouble(th.LowerComfortC + 5, th.SetpointC), 2) : 0;
         return new HouseholdTrace(household.Id, [.. baseKw], [.. occupied], [.. draws], [.. curtail], sessions.ToImmutable(), tank0);
     }
 

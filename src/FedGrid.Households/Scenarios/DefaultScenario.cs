@@ -1,7 +1,7 @@
 using System.Collections.Immutable;
 using FedGrid.Grid.Feeders;
 using FedGrid.Households.Data;
-using FedGrid.Households.Internal;
+using FedGrid.Grid.Numerics;
 using FedGrid.Households.Tariffs;
 
 namespace FedGrid.Households.Scenarios;
@@ -75,7 +75,7 @@ public static class DefaultScenario
     /// <summary>The 32 households: structure fixed, parameters drawn from <paramref name="seed"/>.</summary>
     public static ImmutableArray<Household> CreateHouseholds(ulong seed)
     {
-        var rng = new SplitMix64(SplitMix64.Derive(seed, 0x686F757365UL));
+        var rng = SeededRandom.ForStream(seed, 0x686F757365UL);
         var list = ImmutableArray.CreateBuilder<Household>(32);
         int n = 0;
         for (int b = 0; b < LoadBuses.Length; b++)
@@ -87,17 +87,17 @@ public static class DefaultScenario
                 if (n % 3 == 1)
                     appliances.Add(new DeferrableLoad("vehicle", n % 4 == 1 ? 7.2 : 3.7, 0.02, 1.0));
                 if (n % 2 == 1 || n % 5 == 0)
-                    appliances.Add(new ThermalStorage("water heater", Math.Round(rng.Uniform(150, 250) / 10) * 10, 3.0, 60, 45, 12, 20,
-                        Math.Round(rng.Uniform(0.0015, 0.0022), 5), 0.5));
+                    appliances.Add(new ThermalStorage("water heater", Math.Round(rng.NextDouble(150, 250) / 10) * 10, 3.0, 60, 45, 12, 20,
+                        Math.Round(rng.NextDouble(0.0015, 0.0022), 5), 0.5));
                 if (n % 7 == 3)
                     appliances.Add(new CurtailableLoad("pool pump", 1.1, 0.5, 0.03, CurtailableUse.PoolPump));
                 else if (n % 2 == 0)
-                    appliances.Add(new CurtailableLoad("heat pump", Math.Round(rng.Uniform(1.2, 2.5), 1), 0.4, 0.08, CurtailableUse.SpaceConditioning));
-                var baseLoad = new BaseLoadProfile(Math.Round(rng.Uniform(0.15, 0.35), 3), Math.Round(rng.Uniform(0.8, 1.6), 2),
-                    Math.Round(rng.Uniform(0.2, 0.5), 2), Math.Round(rng.Uniform(1.0, 2.2), 2), 0.25);
+                    appliances.Add(new CurtailableLoad("heat pump", Math.Round(rng.NextDouble(1.2, 2.5), 1), 0.4, 0.08, CurtailableUse.SpaceConditioning));
+                var baseLoad = new BaseLoadProfile(Math.Round(rng.NextDouble(0.15, 0.35), 3), Math.Round(rng.NextDouble(0.8, 1.6), 2),
+                    Math.Round(rng.NextDouble(0.2, 0.5), 2), Math.Round(rng.NextDouble(1.0, 2.2), 2), 0.25);
                 var occupancy = new OccupancySchedule(rng.NextInt(24, 29), rng.NextInt(30, 35), rng.NextInt(68, 77), rng.NextInt(88, 94),
-                    Math.Round(rng.Uniform(0.1, 0.3), 2), 0.5);
-                list.Add(new Household($"H{n:00}", LoadBuses[b], baseLoad, Math.Round(rng.Uniform(0.93, 0.98), 2), appliances.ToImmutable(), occupancy));
+                    Math.Round(rng.NextDouble(0.1, 0.3), 2), 0.5);
+                list.Add(new Household($"H{n:00}", LoadBuses[b], baseLoad, Math.Round(rng.NextDouble(0.93, 0.98), 2), appliances.ToImmutable(), occupancy));
             }
         }
         return list.MoveToImmutable();

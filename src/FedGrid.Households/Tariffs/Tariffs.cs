@@ -1,5 +1,5 @@
 using System.Collections.Immutable;
-using FedGrid.Households.Internal;
+using FedGrid.Grid.Numerics;
 
 namespace FedGrid.Households.Tariffs;
 
@@ -180,12 +180,12 @@ public sealed record RealTimeTariff : ITariff
         if (!(model.Reversion >= 0 && model.Reversion < 1) || !(model.SpikeDecay >= 0 && model.SpikeDecay < 1)
             || !(model.Volatility >= 0) || !(model.SpikeProbability is >= 0 and <= 1) || !(model.SpikeMeanPerKwh >= 0))
             throw new ArgumentException("real-time price model: need 0 ≤ reversion < 1, 0 ≤ spike decay < 1, volatility ≥ 0, spike probability in [0, 1], spike mean ≥ 0");
-        var rng = new SplitMix64(SplitMix64.Derive(seed, 0x7072696365UL));
+        var rng = SeededRandom.ForStream(seed, 0x7072696365UL);
         var prices = new double[slots];
         double x = 0, spike = 0;
         for (int t = 0; t < slots; t++)
         {
-            if (rng.Chance(model.SpikeProbability)) spike += rng.Exponential(model.SpikeMeanPerKwh);
+            if (rng.NextDouble() < model.SpikeProbability) spike += -model.SpikeMeanPerKwh * Math.Log(1 - rng.NextDouble()); // exponential, mean SpikeMeanPerKwh
             prices[t] = Math.Max(model.FloorPerKwh, model.Shape(SlotCalendar.SlotOfDay(t)) + x + spike);
             x = model.Reversion * x + model.Volatility * rng.NextGaussian();
             spike *= model.SpikeDecay;
