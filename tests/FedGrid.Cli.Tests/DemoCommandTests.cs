@@ -92,3 +92,61 @@ public class DemoCommandTests
         Assert.Contains(Verbs.All(), c => c.Name == "demo");
     }
 }
+
+public class DemoScenarioFileTests
+{
+    private static string Root()
+    {
+        for (var dir = new DirectoryInfo(AppContext.BaseDirectory); dir is not null; dir = dir.Parent)
+            if (File.Exists(Path.Combine(dir.FullName, "FedGrid.sln"))) return dir.FullName;
+        throw new InvalidOperationException("repository root (FedGrid.sln) not found");
+    }
+
+    private static string Summary(DemoOptions o)
+    {
+        var stdout = new StringWriter();
+        Assert.Equal(0, DemoCommand.Run(o, stdout, TextWriter.Null));
+        using var doc = JsonDocument.Parse(stdout.ToString());
+        return doc.RootElement.GetProperty("noControl").GetRawText() + doc.RootElement.GetProperty("rule").GetRawText();
+    }
+
+    [Fact]
+    public void A_saved_default_scenario_runs_to_the_same_figures()
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-demo-scn-" + Guid.NewGuid().ToString("N"));
+        Directory.CreateDirectory(dir);
+        try
+        {
+            string file = Path.Combine(dir, "s.json");
+            Assert.Equal(0, DemoCommand.Run(new DemoOptions(2, 8, null, false, SaveScenarioPath: file), TextWriter.Null, TextWriter.Null));
+            string fromFile = Summary(new DemoOptions(null, null, Path.Combine(dir, "a"), true, ScenarioPath: file));
+            string builtIn = Summary(new DemoOptions(2, 8, Path.Combine(dir, "b"), true));
+            Assert.Equal(builtIn, fromFile);
+        }
+        finally { Directory.Delete(dir, true); }
+    }
+
+    [Fact]
+    public void The_sample_scenario_file_is_the_default_week()
+    {
+        string sample = Path.Combine(Root(), "samples", "scenarios", "default-week.json");
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-demo-sample-" + Guid.NewGuid().ToString("N"));
+        try
+        {
+            string file = Path.Combine(dir, "s.json");
+            Directory.CreateDirectory(dir);
+            DemoCommand.Run(new DemoOptions(null, null, null, false, SaveScenarioPath: file), TextWriter.Null, TextWriter.Null);
+            Assert.Equal(File.ReadAllText(file), File.ReadAllText(sample)); // regenerate with: fedgrid demo --save-scenario samples/scenarios/default-week.json
+        }
+        finally { Directory.Delete(dir, true); }
+    }
+
+    [Fact]
+    public void Scenario_file_errors_are_user_errors()
+    {
+        var e = Assert.Throws<UserInputException>(() => DemoCommand.Run(new DemoOptions(3, null, null, true, ScenarioPath: "x.json"), TextWriter.Null, TextWriter.Null));
+        Assert.Contains("--scenario takes days and seed from the file", e.Message);
+        e = Assert.Throws<UserInputException>(() => DemoCommand.Run(new DemoOptions(null, null, null, true, ScenarioPath: "/nonexistent/x.json"), TextWriter.Null, TextWriter.Null));
+        Assert.Contains("/nonexistent/x.json: file not found", e.Message);
+    }
+}

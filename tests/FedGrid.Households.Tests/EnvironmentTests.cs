@@ -174,3 +174,21 @@ public class BaselineTests
         }
     }
 }
+
+public class RuleThresholdTests
+{
+    [Fact]
+    public void Threshold_is_the_peak_price_or_the_dearest_fifth()
+    {
+        Assert.Equal(0.38, PriceThresholdPolicy.ThresholdFor(DefaultScenario.CreateTariff(new SlotCalendar()), 96));
+        // Prices 0.01, 0.02, ..., 1.00 over 100 slots: the 80th percentile (index floor(0.8·99) = 79) is 0.80.
+        var rt = new StepTariff();
+        Assert.Equal(0.80, PriceThresholdPolicy.ThresholdFor(rt, 100), 12);
+    }
+
+    private sealed class StepTariff : Tariffs.ITariff
+    {
+        public string Name => "steps";
+        public double PriceAt(int slot) => (100 - slot) / 100.0;
+    }
+}

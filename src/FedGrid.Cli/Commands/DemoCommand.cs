@@ -5,12 +5,11 @@ using System.Text.Json;
 using FedGrid.Households;
 using FedGrid.Households.Scenarios;
 using FedGrid.Households.Simulation;
-using FedGrid.Households.Tariffs;
 
 namespace FedGrid.Cli.Commands;
 
-/// <summary>Options of <c>fedgrid demo</c>.</summary>
-internal sealed record DemoOptions(int Days, ulong Seed, string? OutDir, bool Json);
+/// <summary>Options of <c>fedgrid demo</c>; null days and seed take the defaults (or, with a scenario file, the file's).</summary>
+internal sealed record DemoOptions(int? Days, ulong? Seed, string? OutDir, bool Json, string? ScenarioPath = null, string? SaveScenarioPath = null);
 
 /// <summary>
 /// <c>fedgrid demo</c>: the embedded default scenario under the no-control and the price-rule
@@ -30,16 +29,18 @@ internal static class DemoCommand
 
     public static Command Create()
     {
-        var days = new Option<int>("--days") { Description = "days to simulate (1 to 366)", DefaultValueFactory = _ => 7 };
-        var seed = new Option<ulong>("--seed") { Description = "seed of the households and their data", DefaultValueFactory = _ => DefaultScenario.DefaultSeed };
+        var days = new Option<int?>("--days") { Description = "days to simulate, 1 to 366 (default 7)" };
+        var seed = new Option<ulong?>("--seed") { Description = $"seed of the households and their data (default {DefaultScenario.DefaultSeed})" };
         var outDir = new Option<string?>("--out") { Description = "run folder (default runs/demo-s<seed>-<days>d)" };
         var json = new Option<bool>("--json") { Description = "print only the summary as JSON on stdout" };
+        var scenario = new Option<string?>("--scenario") { Description = "run a scenario file (fedgrid-scenario JSON) instead of the embedded default" };
+        var save = new Option<string?>("--save-scenario") { Description = "write the default scenario (with --seed and --days) as a scenario file and stop" };
         var cmd = new Command("demo", "Run the embedded default scenario (invented 0.4 kV feeder, 32 households, time-of-use tariff) under the no-control and price-rule baselines.")
         {
-            days, seed, outDir, json,
+            days, seed, outDir, json, scenario, save,
         };
-        cmd.SetAction(parse => Run(new DemoOptions(parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json)),
-            Console.Out, Console.Error));
+        cmd.SetAction(parse => Run(new DemoOptions(parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json),
+            parse.GetValue(scenario), parse.GetValue(save)), Console.Out, Console.Error));
         return cmd;
     }
 
@@ -48,7 +49,14 @@ internal static class DemoCommand
     {
         if (options.Days is < 1 or > 366)
             throw new UserInputException($"--days must be between 1 and 366, got {options.Days}");
-        string dir = Path.GetFullPath(options.OutDir ?? Path.Combine("runs", $"demo-s{options.Seed}-{options.Days}d"));
+        if (options.ScenarioPath is not null && (options.Days is not null || options.Seed is not null || options.SaveScenarioPath is not null))
+            throw new UserInputException("--scenario takes days and seed from the file: drop --days, --seed and --save-scenario");
+        if (options.SaveScenarioPath is not null)
+            return SaveScenario(options, stdout);
+        Scenario scenario = LoadScenario(options, stderr);
+        int days = scenario.SlotCount / SlotCalendar.SlotsPerDay;
+        string runName = options.ScenarioPath is null ? $"demo-s{scenario.Seed}-{days}d" : $"demo-{Path.GetFileNameWithoutExtension(options.ScenarioPath)}";
+        string dir = Path.GetFullPath(options.OutDir ?? Path.Combine("runs", runName));
         try
         {
             Directory.CreateDirectory(dir);
@@ -58,15 +66,13 @@ internal static class DemoCommand
             throw new UserInputException($"--out: cannot create the run folder '{dir}': {e.Message}");
         }
 
-        stderr.WriteLine($"demo: building the default scenario (seed {options.Seed}, {options.Days} days)");
-        Scenario scenario = DefaultScenario.Create(options.Seed, options.Days);
         var env = new DemandResponseEnvironment(scenario);
-        var tariff = (TimeOfUseTariff)scenario.Tariff;
-        IDemandResponsePolicy[] policies = [new NoControlPolicy(), new PriceThresholdPolicy(tariff.HighestPrice, RuleReleaseSpreadSlots)];
+        double threshold = PriceThresholdPolicy.ThresholdFor(scenario.Tariff, scenario.SlotCount);
+        IDemandResponsePolicy[] policies = [new NoControlPolicy(), new PriceThresholdPolicy(threshold, RuleReleaseSpreadSlots)];
         var runs = new List<(RunSummary Summary, IReadOnlyList<SlotRecord> Slots)>();
         foreach (IDemandResponsePolicy policy in policies)
         {
-            var (summary, slots) = PolicyRun.Run(env, policy, day => stderr.WriteLine($"demo: {policy.Name}: day {day}/{options.Days}"));
+            var (summary, slots) = PolicyRun.Run(env, policy, day => stderr.WriteLine($"demo: {policy.Name}: day {day}/{days}"));
             runs.Add((summary, slots));
         }
 
@@ -74,7 +80,7 @@ internal static class DemoCommand
         string jsonPath = Path.Combine(dir, "summary.json");
         string pngPath = Path.Combine(dir, "feeder-load.png");
         File.WriteAllText(csvPath, SlotsCsv(scenario, runs), new UTF8Encoding(false));
-        byte[] summaryJson = SummaryJson(scenario, options, tariff.HighestPrice, runs, dir);
+        byte[] summaryJson = SummaryJson(scenario, threshold, runs, dir);
         File.WriteAllBytes(jsonPath, summaryJson);
         File.WriteAllBytes(pngPath, DemoPlot.FeederLoadPng(scenario, runs));
         stderr.WriteLine($"demo: wrote {dir}");
@@ -85,15 +91,15 @@ internal static class DemoCommand
             return CliRunner.ExitOk;
         }
         var net = scenario.Feeder.Network;
-        stdout.WriteLine($"Default scenario: feeder {scenario.Feeder.Name} ({scenario.Feeder.Buses.Count} buses, {scenario.Feeder.Buses[0].BaseKv:0.###} kV), {scenario.Households.Length} households, " +
-                         $"{tariff.Name}, {options.Days} days from {scenario.Calendar.FirstDay}, seed {options.Seed}");
+        stdout.WriteLine($"Scenario {scenario.Name}: feeder {scenario.Feeder.Name} ({scenario.Feeder.Buses.Count} buses, {scenario.Feeder.Buses[0].BaseKv:0.###} kV), {scenario.Households.Length} households, " +
+                         $"{scenario.Tariff.Name}, {days} days from {scenario.Calendar.FirstDay}, seed {scenario.Seed}");
         stdout.WriteLine($"Limits: substation import {scenario.Feeder.Substation.ImportLimitKw:0} kW, voltage {net.VMinPu.Min():0.00}-{net.VMaxPu.Max():0.00} pu, cable ampacities");
         stdout.WriteLine();
         stdout.WriteLine($"{"baseline",-10} {"cost $/day",11} {"bill $",9} {"discomf. $",10} {"peak kW",8} {"viol. slots",11} {"losses kWh",10} {"min V pu",8}");
         foreach (var (s, _) in runs)
             stdout.WriteLine($"{s.Policy,-10} {s.DailyCostDollars,11:0.00} {s.BillDollars,9:0.00} {s.DiscomfortDollars,10:0.00} {s.PeakKw,8:0.0} {s.ViolationSlots,11} {s.LossesKwh,10:0.0} {s.MinVoltagePu,8:0.0000}");
         stdout.WriteLine();
-        stdout.WriteLine($"rule = every household at its minimum flexible power while the price is at least {tariff.HighestPrice:0.00} $/kWh (peak), then a staggered restart over {RuleReleaseSpreadSlots * SlotCalendar.SlotHours:0.#} h, desired otherwise");
+        stdout.WriteLine($"rule = every household at its minimum flexible power while the price is at least {threshold:0.00} $/kWh, then a staggered restart over {RuleReleaseSpreadSlots * SlotCalendar.SlotHours:0.#} h, desired otherwise");
         stdout.WriteLine($"Run folder: {dir}");
         stdout.WriteLine($"  {Path.GetFileName(csvPath)}  {Path.GetFileName(jsonPath)}  {Path.GetFileName(pngPath)}");
         stdout.WriteLine();
@@ -124,7 +130,44 @@ internal static class DemoCommand
         return sb.ToString();
     }
 
-    private static byte[] SummaryJson(Scenario scenario, DemoOptions options, double threshold,
+    private static Scenario LoadScenario(DemoOptions options, TextWriter stderr)
+    {
+        if (options.ScenarioPath is null)
+        {
+            ulong seed = options.Seed ?? DefaultScenario.DefaultSeed;
+            int days = options.Days ?? 7;
+            stderr.WriteLine($"demo: building the default scenario (seed {seed}, {days} days)");
+            return DefaultScenario.Create(seed, days);
+        }
+        stderr.WriteLine($"demo: reading scenario {options.ScenarioPath}");
+        try
+        {
+            return ScenarioFile.Load(options.ScenarioPath, FedGrid.Grid.Feeders.FeederFile.Load);
+        }
+        catch (Exception e) when (e is ScenarioFileException or FedGrid.Households.Data.MeterDataException)
+        {
+            throw new UserInputException(e.Message);
+        }
+    }
+
+    private static int SaveScenario(DemoOptions options, TextWriter stdout)
+    {
+        Scenario scenario = DefaultScenario.Create(options.Seed ?? DefaultScenario.DefaultSeed, options.Days ?? 7);
+        string path = Path.GetFullPath(options.SaveScenarioPath!);
+        try
+        {
+            using var stream = File.Create(path);
+            ScenarioFile.Write(scenario, ScenarioFile.BuiltInDemoFeeder, stream);
+        }
+        catch (Exception e) when (e is IOException or UnauthorizedAccessException or ArgumentException or NotSupportedException)
+        {
+            throw new UserInputException($"--save-scenario: cannot write '{path}': {e.Message}");
+        }
+        if (!options.Json) stdout.WriteLine($"Wrote the default scenario to {path}; run it with: fedgrid demo --scenario {path}");
+        return CliRunner.ExitOk;
+    }
+
+    private static byte[] SummaryJson(Scenario scenario, double threshold,
         IReadOnlyList<(RunSummary Summary, IReadOnlyList<SlotRecord> Slots)> runs, string dir)
     {
         using var ms = new MemoryStream();
@@ -135,8 +178,8 @@ internal static class DemoCommand
             w.WriteString("feeder", scenario.Feeder.Name);
             w.WriteNumber("households", scenario.Households.Length);
             w.WriteString("tariff", scenario.Tariff.Name);
-            w.WriteNumber("seed", options.Seed);
-            w.WriteNumber("days", options.Days);
+            w.WriteNumber("seed", scenario.Seed);
+            w.WriteNumber("days", scenario.SlotCount / SlotCalendar.SlotsPerDay);
             w.WriteString("currency", "$");
             w.WriteNumber("importLimitKw", scenario.Feeder.Substation.ImportLimitKw);
             w.WriteNumber("ruleThresholdPerKwh", threshold);

@@ -47,6 +47,21 @@ public sealed class PriceThresholdPolicy : IDemandResponsePolicy
         ReleaseSpreadSlots = releaseSpreadSlots;
     }
 
+    /// <summary>
+    /// The rule's usual threshold for a tariff over <paramref name="slots"/> slots: the peak price of a time-of-use
+    /// tariff; for any other tariff the 80th percentile of its prices over the horizon (the dearest fifth of the slots).
+    /// </summary>
+    public static double ThresholdFor(Tariffs.ITariff tariff, int slots)
+    {
+        ArgumentNullException.ThrowIfNull(tariff);
+        ArgumentOutOfRangeException.ThrowIfNegativeOrZero(slots);
+        if (tariff is Tariffs.TimeOfUseTariff tou) return tou.HighestPrice;
+        var prices = new double[slots];
+        for (int t = 0; t < slots; t++) prices[t] = tariff.PriceAt(t);
+        Array.Sort(prices);
+        return prices[(int)Math.Floor(0.8 * (slots - 1))];
+    }
+
     /// <summary>Price from which load is held at minimum, $ per kWh.</summary>
     public double ThresholdPerKwh { get; }
 
