@@ -75,6 +75,9 @@ public class MeterDataCsvTests
     {
         var p = Single(Day("household,slot,baseKw", s => s == 5 ? "5.5,0.3" : $"{s},0.3", "H01"));
         Assert.Equal((7, "slot"), (p.Row, p.Column));
+        var far = Single("household,slot,baseKw\nH01,35136,0.3\n");
+        Assert.Equal((2, "slot"), (far.Row, far.Column));
+        Assert.Contains("366 days", far.Message);
     }
 
     [Fact]

@@ -70,13 +70,14 @@ public sealed record MeterData(int SlotCount, DayOfWeek? FirstDay, ImmutableArra
 /// <c>household</c> (id, required); exactly one of <c>slot</c> (integer from 0, 15-minute slots) or
 /// <c>timestamp</c> (local time <c>yyyy-MM-ddTHH:mm</c> on a quarter hour; the earliest must be a midnight
 /// and becomes slot 0); <c>baseKw</c> (base load, kW, ≥ 0, required); <c>occupied</c> (optional: 1/0 or true/false).
-/// Every household must have every slot from 0 to the last exactly once; the horizon must be whole days.
+/// Every household must have every slot from 0 to the last exactly once; the horizon must be whole days, at most 366.
 /// Lines starting with <c>#</c> and blank lines are skipped. Each bad value is reported with its file, row and column.
 /// </summary>
 public static class MeterDataCsv
 {
     private static readonly string[] Known = ["household", "slot", "timestamp", "baseKw", "occupied"];
     private const int MaxProblems = 50;
+    private const long MaxSlots = 366L * SlotCalendar.SlotsPerDay;
 
     /// <summary>Reads a file.</summary>
     /// <exception cref="MeterDataException">The file is missing or has bad values.</exception>
@@ -143,9 +144,14 @@ public static class MeterDataCsv
             if (bySlot)
             {
                 string s = f[col["slot"]].Trim();
-                if (!long.TryParse(s, NumberStyles.None, CultureInfo.InvariantCulture, out slot) || slot > 10_000_000)
+                if (!long.TryParse(s, NumberStyles.None, CultureInfo.InvariantCulture, out slot))
                 {
                     Bad(row, "slot", $"'{s}' is not a slot number (integer ≥ 0)");
+                    slot = -1;
+                }
+                else if (slot >= MaxSlots)
+                {
+                    Bad(row, "slot", $"slot {s} lies beyond 366 days ({MaxSlots} slots)");
                     slot = -1;
                 }
             }
@@ -186,6 +192,9 @@ public static class MeterDataCsv
                 throw new MeterDataException([new MeterDataProblem(fileName, stamps.First(s => s.Time == t0).Row, "timestamp", $"the earliest timestamp {t0:yyyy-MM-dd'T'HH:mm} must be a midnight (it becomes slot 0)")]);
             firstDay = t0.DayOfWeek;
             var bySlotRow = stamps.ToDictionary(s => s.Row, s => (long)((s.Time - t0).TotalMinutes / 15));
+            foreach (var (row, time) in stamps)
+                if (bySlotRow[row] >= MaxSlots) Bad(row, "timestamp", $"{time:yyyy-MM-dd'T'HH:mm} lies more than 366 days after the first timestamp");
+            if (problems.Count > 0) throw new MeterDataException(problems);
             for (int k = 0; k < rows.Count; k++) rows[k] = rows[k] with { Slot = bySlotRow[rows[k].Row] };
         }
 

@@ -90,6 +90,9 @@ public sealed record Scenario(string Name, Feeder Feeder, ImmutableArray<Househo
             }
         }
         foreach (FixedBusLoad f in FixedLoads)
+        {
             if (!Feeder.TryGetIndex(f.BusId, out _)) throw new ArgumentException($"scenario '{Name}': fixed load on unknown bus '{f.BusId}'");
+            if (!double.IsFinite(f.Kw) || !double.IsFinite(f.Kvar)) throw new ArgumentException($"scenario '{Name}': fixed load at bus '{f.BusId}' must be finite");
+        }
     }
 }
