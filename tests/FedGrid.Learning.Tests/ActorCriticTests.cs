@@ -117,6 +117,29 @@ public sealed class ActorCriticTests
     }
 
     [Fact]
+    public void ValuesAreTheCriticsPerHouseholdHeadsAndDiscardDropsAPartRollout()
+    {
+        var learner = new ActorCriticLearner(3, 2, 1, Options);
+        float[] state = TestData.Vector(new LearningRandom(2), 6, 1f), v = new float[3], direct = new float[3];
+        learner.Values(state, v);
+        learner.Critic.Forward(state, learner.Critic.CreateWorkspace(), direct);
+        Assert.Equal(direct, v);
+
+        float[] lo = new float[3], hi = [1f, 1f, 1f], a = new float[3], costs = [1f, 2f, 3f];
+        learner.Act(state, lo, hi, a, explore: true);
+        Assert.False(learner.Record(costs, state, done: false)); // 1 of 4 rollout steps
+        learner.DiscardRollout();
+        for (int i = 0; i < 3; i++)
+        {
+            learner.Act(state, lo, hi, a, explore: true);
+            Assert.False(learner.Record(costs, state, done: false));
+        }
+        learner.Act(state, lo, hi, a, explore: true);
+        Assert.True(learner.Record(costs, state, done: false)); // the discarded step did not count
+        Assert.Equal(1, learner.UpdateCount);
+    }
+
+    [Fact]
     public void OneStepTdUpdatesEveryStep()
     {
         var task = new TrackingTask(agents: 1, steps: 10);
@@ -128,8 +151,10 @@ public sealed class ActorCriticTests
         Assert.True(learner.LastCriticGradientNorm > 0);
     }
 
-    [Fact]
-    public void TabularControllerLearnsTheTrackingTask()
+    [Theory]
+    [InlineData(false)]
+    [InlineData(true)]
+    public void TabularControllerLearnsTheTrackingTask(bool doubleQ)
     {
         var task = new TrackingTask(agents: 2, steps: 16);
         var disc = new UniformDiscretiser([-1f, 0f], [1.5f, 2f], [10, 1]);
@@ -139,12 +164,12 @@ public sealed class ActorCriticTests
             Epsilon = new LinearSchedule(1.0, 0.0, 3000),
             LearningRate = new PolynomialSchedule(1.0, 0.7),
             Seed = 2,
-        }, doubleQ: false);
+        }, doubleQ);
         double before = controller.RunEpisode(task, 99, train: false).MeanCostPerStep;
-        for (int e = 0; e < 400; e++)
-        {
-            controller.RunEpisode(task, (ulong)e, train: true);
-        }
+        int calls = 0;
+        IReadOnlyList<EpisodeResult> results = controller.Train(task, 400, seed: 4, (_, _) => calls++);
+        Assert.Equal(400, calls);
+        Assert.Equal(400 * 16, results.Sum(r => r.Steps));
         double after = Enumerable.Range(0, 10).Average(e => controller.RunEpisode(task, 500 + (ulong)e, train: false).MeanCostPerStep);
         Assert.True(after < 0.25 * before, $"{before:F4} -> {after:F4}");
         Assert.True(controller.Learner(0).StepCount > 0);

@@ -61,6 +61,10 @@ public sealed class OptimiserTests
         Assert.Equal(0.9f, theta[0], 1e-6f);
         sgd.Step(theta, [2f]);
         Assert.Equal(0.65f, theta[0], 1e-6f);
+        sgd.Reset(); // momentum forgotten: the next step is plain
+        sgd.Step(theta, [1f]);
+        Assert.Equal(0.55f, theta[0], 1e-6f);
+        Assert.Equal(1, sgd.StepCount);
         var plain = new Sgd(1, learningRate: 0.1);
         float[] p = [1f];
         plain.Step(p, [3f]);

@@ -7,7 +7,7 @@ namespace FedGrid.Learning.Tests;
 /// Outside check: tabular Q-learning (Watkins 1992) and double Q-learning (van Hasselt 2010) on a small MDP whose
 /// solution is computed here, independently, by value iteration (Bellman 1957; Sutton &amp; Barto 2018, §4.4).
 /// </summary>
-public sealed class TabularTests
+public sealed class TabularTests(Xunit.Abstractions.ITestOutputHelper log)
 {
     // 5-state chain. Action 0 ("left"): to s−1 with p 0.9, else stay. Action 1 ("right"): to s+1 with p 0.8, else stay.
     // Ends clamp (moving off an end stays). Cost c(s, a) = 0.5·(4 − s) + 0.2·a: far from state 4 is expensive, moving right
@@ -85,10 +85,11 @@ public sealed class TabularTests
         {
             for (int a = 0; a < Actions; a++)
             {
-                Console.WriteLine($"{learner.GetType().Name} Q({s},{a}) err {learner.Q(s, a) - reference[s, a]:E2}");
+                log.WriteLine($"{learner.GetType().Name} Q({s},{a}) err {learner.Q(s, a) - reference[s, a]:E2}");
                 Assert.True(Math.Abs(learner.Q(s, a) - reference[s, a]) < 1e-2, $"Q({s},{a}) = {learner.Q(s, a):F4}, value iteration {reference[s, a]:F4}");
             }
             Assert.Equal(reference[s, 0] <= reference[s, 1] ? 0 : 1, learner.GreedyAction(s));
+            Assert.Equal(Math.Min(reference[s, 0], reference[s, 1]), learner.Value(s), 1e-2);
         }
     }
 
@@ -102,7 +103,7 @@ public sealed class TabularTests
         {
             for (int a = 0; a < Actions; a++)
             {
-                Console.WriteLine($"{learner.GetType().Name} Q({s},{a}) err {learner.Q(s, a) - reference[s, a]:E2}");
+                log.WriteLine($"{learner.GetType().Name} Q({s},{a}) err {learner.Q(s, a) - reference[s, a]:E2}");
                 Assert.True(Math.Abs(learner.Q(s, a) - reference[s, a]) < 1e-2, $"Q({s},{a}) = {learner.Q(s, a):F4}, value iteration {reference[s, a]:F4}");
             }
             Assert.Equal(Math.Min(reference[s, 0], reference[s, 1]), learner.Value(s), 1e-2);

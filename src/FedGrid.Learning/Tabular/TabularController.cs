@@ -64,6 +64,25 @@ public sealed class TabularController
     /// <returns>The learner.</returns>
     public ITabularLearner Learner(int agent) => _learners[agent];
 
+    /// <summary>Trains for <paramref name="episodes"/> episodes; episode e uses seed DeriveSeed(seed, e).</summary>
+    /// <param name="task">The task.</param>
+    /// <param name="episodes">Number of episodes.</param>
+    /// <param name="seed">Seed of the episode seeds.</param>
+    /// <param name="progress">Called after each episode with its index and result, or null.</param>
+    /// <returns>The result of every episode, in order.</returns>
+    public IReadOnlyList<EpisodeResult> Train(IControlTask task, int episodes, ulong seed, Action<int, EpisodeResult>? progress = null)
+    {
+        ArgumentOutOfRangeException.ThrowIfNegative(episodes);
+        var results = new List<EpisodeResult>(episodes);
+        for (int e = 0; e < episodes; e++)
+        {
+            EpisodeResult r = RunEpisode(task, Randomness.LearningRandom.DeriveSeed(seed, (ulong)e), train: true);
+            results.Add(r);
+            progress?.Invoke(e, r);
+        }
+        return results;
+    }
+
     /// <summary>Runs one episode; with <paramref name="train"/> acts ε-greedily and updates, otherwise acts greedily.</summary>
     /// <param name="task">The task (its action size must equal the grid's actions per agent).</param>
     /// <param name="seed">Episode seed.</param>
