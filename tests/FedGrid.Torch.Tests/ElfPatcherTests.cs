@@ -5,6 +5,7 @@ using TorchSharp;
 namespace FedGrid.Torch.Tests;
 
 /// <summary>The build-time ELF fix (src/FedGrid.Torch/build/ElfVersionNeedPatcher.cs) on synthetic files and on the real output copy.</summary>
+[System.Runtime.Versioning.SupportedOSPlatform("linux")]
 public sealed class ElfPatcherTests
 {
     private const string Lib = ElfVersionNeedPatcher.TorchSharpLibrary;
@@ -129,6 +130,8 @@ public sealed class ElfPatcherTests
             File.WriteAllBytes(shim, original);
             DateTime stamp = new(2024, 5, 1, 12, 0, 0, DateTimeKind.Utc);
             File.SetLastWriteTimeUtc(shim, stamp);
+            const UnixFileMode mode = UnixFileMode.UserRead | UnixFileMode.UserWrite | UnixFileMode.UserExecute | UnixFileMode.GroupRead;
+            File.SetUnixFileMode(shim, mode);
 
             // A hard link stands in for a package-cache file the copy might share storage with: it must stay intact.
             string cacheTwin = Path.Combine(dir, "cache-twin.so");
@@ -141,6 +144,7 @@ public sealed class ElfPatcherTests
             Assert.Contains("Patched", message);
             Assert.NotEqual(original, File.ReadAllBytes(shim));
             Assert.Equal(stamp, File.GetLastWriteTimeUtc(shim));
+            Assert.Equal(mode, File.GetUnixFileMode(shim));
             if (linked)
             {
                 Assert.Equal(original, File.ReadAllBytes(cacheTwin));

@@ -254,6 +254,7 @@ namespace FedGrid.Torch.Build
             {
                 DateTime modified = File.GetLastWriteTimeUtc(path);
                 string temporary = path + ".fedgrid-patch.tmp";
+                File.Copy(path, temporary, true); // a separate file with the copy's permissions
                 File.WriteAllBytes(temporary, bytes);
                 File.Delete(path);
                 File.Move(temporary, path);
