@@ -5,7 +5,7 @@ using FedGrid.Learning.Tasks;
 
 namespace FedGrid.Learning.Tests;
 
-public sealed class ActorCriticTests
+public sealed class ActorCriticTests(Xunit.Abstractions.ITestOutputHelper log)
 {
     private static readonly ActorCriticOptions Options = new()
     {
@@ -30,10 +30,28 @@ public sealed class ActorCriticTests
         double before = Evaluate(learner, task);
         learner.Train(task, episodes: 400, seed: 1);
         double after = Evaluate(learner, task);
+        log.WriteLine($"tracking: cost per step {before:F4} untrained, {after:F4} after 400 episodes");
         // The untrained policy sits near the middle of each box: mean cost ≈ var(target) × 3 agents ≈ 3·(1.6²/12) ≈ 0.64.
         Assert.InRange(before, 0.3, 1.5);
         Assert.True(after < 0.05 * before, $"cost per step {before:F4} before training, {after:F4} after");
         Assert.True(learner.UpdateCount >= 400 * 4);
+    }
+
+    [Fact]
+    public void ShiftsDeferrableEnergyToCheapSlots()
+    {
+        // Carry-over and a moving box: savings captured = (no control − learned) / (no control − optimum), the
+        // optimum computed in the task from the known prices (the cheapest slots).
+        var task = new DeferrableTask(agents: 4);
+        var learner = new ActorCriticLearner(4, 3, 1, Options with { HiddenSizes = [32, 32], Gamma = 0.95, RolloutSteps = 8 });
+        ulong[] seeds = Enumerable.Range(0, 20).Select(i => 50_000 + (ulong)i).ToArray();
+        double none = seeds.Average(task.NoControlCost), best = seeds.Average(task.OptimalCost);
+        learner.Train(task, episodes: 1500, seed: 1);
+        double learned = seeds.Average(s => learner.RunEpisode(task, s, train: false).TotalCost);
+        double captured = (none - learned) / (none - best);
+        log.WriteLine($"no control {none:F3}, learned {learned:F3}, optimum {best:F3}: {100 * captured:F1} % of the savings captured");
+        Assert.True(best < none);
+        Assert.True(captured > 0.9, $"no control {none:F3}, learned {learned:F3}, optimum {best:F3}: {100 * captured:F1} % captured");
     }
 
     [Fact]
@@ -171,6 +189,7 @@ public sealed class ActorCriticTests
         Assert.Equal(400, calls);
         Assert.Equal(400 * 16, results.Sum(r => r.Steps));
         double after = Enumerable.Range(0, 10).Average(e => controller.RunEpisode(task, 500 + (ulong)e, train: false).MeanCostPerStep);
+        log.WriteLine($"tabular (double Q: {doubleQ}) tracking: {before:F4} -> {after:F4}");
         Assert.True(after < 0.25 * before, $"{before:F4} -> {after:F4}");
         Assert.True(controller.Learner(0).StepCount > 0);
     }
