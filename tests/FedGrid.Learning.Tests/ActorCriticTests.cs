@@ -157,6 +157,37 @@ public sealed class ActorCriticTests(Xunit.Abstractions.ITestOutputHelper log)
         Assert.Equal(1, learner.UpdateCount);
     }
 
+    [Theory]
+    [InlineData(true)]
+    [InlineData(false)]
+    public void ResettingTheOptimisersMakesTheNextUpdateThatOfAFreshLearner(bool reset)
+    {
+        var task = new TrackingTask(agents: 2, steps: 8);
+        var trained = new ActorCriticLearner(2, 2, 1, Options with { RolloutSteps = 8 });
+        trained.Train(task, 30, seed: 5);
+        if (reset)
+        {
+            trained.ResetOptimisers();
+        }
+        var fresh = new ActorCriticLearner(2, 2, 1, Options with { RolloutSteps = 8 });
+        fresh.Actor.LoadParameters(trained.Actor.Parameters);
+        fresh.Critic.LoadParameters(trained.Critic.Parameters);
+        foreach (ActorCriticLearner l in new[] { trained, fresh })
+        {
+            // One rollout acting on the mean (no random draws), so both learners see identical data.
+            var rng = new LearningRandom(9);
+            float[] lo = [-1f, -0.5f], hi = [1f, 1.5f], a = new float[2];
+            for (int t = 0; t < 8; t++)
+            {
+                float[] s = TestData.Vector(rng, 4, 1f), costs = TestData.Vector(rng, 2, 1f), next = TestData.Vector(rng, 4, 1f);
+                l.Act(s, lo, hi, a, explore: false);
+                l.Record(costs, next, done: false);
+            }
+        }
+        bool same = trained.Actor.Parameters.SequenceEqual(fresh.Actor.Parameters) && trained.Critic.Parameters.SequenceEqual(fresh.Critic.Parameters);
+        Assert.Equal(reset, same);
+    }
+
     [Fact]
     public void OneStepTdUpdatesEveryStep()
     {

@@ -194,6 +194,16 @@ public sealed class ActorCriticLearner
         return true;
     }
 
+    /// <summary>
+    /// Forgets both Adam optimisers' moment estimates and step counts, e.g. after the federated layer has replaced the
+    /// parameters with an average (the old moments belong to the old parameters).
+    /// </summary>
+    public void ResetOptimisers()
+    {
+        _actorOptimiser.Reset();
+        _criticOptimiser.Reset();
+    }
+
     /// <summary>Discards a partly filled rollout (e.g. when an episode is cut short from outside).</summary>
     public void DiscardRollout()
     {
