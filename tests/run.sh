@@ -8,6 +8,7 @@ cd "$(dirname "$0")/.."
 need=()
 /usr/bin/python3 -c "import scipy" 2>/dev/null || need+=(python3-scipy)
 /usr/bin/python3 -c "import cvxopt" 2>/dev/null || need+=(python3-cvxopt)
+[ -x /usr/bin/readelf ] || need+=(binutils)   # outside ELF reader for the TorchSharp build-fix tests
 if [ ${#need[@]} -gt 0 ]; then
   sudo_cmd=""
   [ "$(id -u)" -ne 0 ] && sudo_cmd="sudo"
