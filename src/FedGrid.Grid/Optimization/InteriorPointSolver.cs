@@ -67,6 +67,9 @@ public sealed class InteriorPointSolver
     // Solution (scaled by 1/τ or certificate normalisation).
     private readonly double[] _xs, _ss, _ys, _zs;
     private bool _hasSolution;
+    // Objective scaling: the iteration works on (cP, cq); duals are unscaled on output.
+    private readonly double[] _qs;
+    private double _c = 1;
 
     /// <summary>Analyses the program's structure (ordering, symbolic factorisation) and allocates every buffer.</summary>
     public InteriorPointSolver(ConeProgram program, SolverOptions? options = null)
@@ -100,10 +103,13 @@ public sealed class InteriorPointSolver
         _rhs = new double[n + m]; _sol = new double[n + m];
         _ws = new double[mg]; _wt = new double[mg]; _wu = new double[mg]; _dS = new double[mg];
         _xs = new double[n]; _ss = new double[mg]; _ys = new double[_p]; _zs = new double[mg];
+        _qs = new double[n];
     }
 
     /// <summary>The program this solver was built for (its values are re-read at every solve).</summary>
     public ConeProgram Program => _pg;
+
+    internal static bool DebugTrace = Environment.GetEnvironmentVariable("FEDGRID_IPM_TRACE") == "1";
 
     /// <summary>The settings.</summary>
     public SolverOptions Options => _o;
@@ -134,7 +140,12 @@ public sealed class InteriorPointSolver
     {
         int n = _n, p = _p, m = _m;
         double[] x = _x, s = _s, z = _z;
-        double[] q = _pg.QArray, b = _pg.BArray, h = _pg.HArray;
+        double[] b = _pg.BArray, h = _pg.HArray;
+        double pmax = 0;
+        foreach (double v in _pg.P.ValueArray) pmax = Math.Max(pmax, Math.Abs(v));
+        _c = 1 / Math.Max(1, Math.Max(pmax, InfNorm(_pg.QArray)));
+        for (int j = 0; j < n; j++) _qs[j] = _c * _pg.QArray[j];
+        double[] q = _qs;
         int nu = _pg.Cones.Degree;
         double delta = _o.StaticRegularization;
         double qNorm = InfNorm(q), cNorm = Math.Max(InfNorm(b), InfNorm(h));
@@ -188,6 +199,7 @@ public sealed class InteriorPointSolver
                 }
             }
             if (iter >= _o.MaxIterations) break;
+            if (DebugTrace) Console.Error.WriteLine($"it {iter} pres {pres:E2} dres {dres:E2} pobj {pobj:E6} dobj {dobj:E6} tau {tau:E2} kap {kappa:E2} cz {cz:E2} mtz {InfNorm(_mtz):E2}");
 
             // Scaling, KKT factorisation, and the fixed right-hand side [−q; c].
             if (!Scaling())
@@ -196,7 +208,7 @@ public sealed class InteriorPointSolver
                 break;
             }
             double mu = (Dot(s.AsSpan(p), z.AsSpan(p)) + tau * kappa) / (nu + 1);
-            if (!_kkt.Factor(_hDiag, _hUpper, delta))
+            if (!_kkt.Factor(_c, _hDiag, _hUpper, delta))
             {
                 status = SolverStatus.NumericalTrouble;
                 break;
@@ -236,6 +248,7 @@ public sealed class InteriorPointSolver
                 break;
             }
             double alpha = Math.Min(1, _o.StepFraction * StepLength(_ds, _dz, dtau, dkappa));
+            if (DebugTrace) Console.Error.WriteLine($"   alphaA {alphaA:E2} sigma {sigma:E2} alpha {alpha:E2} mu {mu:E2} dtau {dtau:E2} regs {_kkt.RegularisedPivots}");
             if (!(alpha > 1e-10))
             {
                 if (++stalls >= 3)
@@ -270,7 +283,8 @@ public sealed class InteriorPointSolver
                 scaleZ = 0;
                 break;
             default:
-                scaleX = scaleZ = _tau > 0 ? 1 / _tau : 0;
+                scaleX = _tau > 0 ? 1 / _tau : 0;
+                scaleZ = scaleX / _c;
                 break;
         }
         for (int j = 0; j < n; j++) _xs[j] = _x[j] * scaleX;
@@ -278,7 +292,7 @@ public sealed class InteriorPointSolver
         for (int i = 0; i < _mg; i++)
         {
             _zs[i] = _z[p + i] * scaleZ;
-            _ss[i] = _s[p + i] * (status == SolverStatus.DualInfeasible ? scaleX : scaleZ);
+            _ss[i] = _s[p + i] * (status == SolverStatus.PrimalInfeasible ? scaleZ : scaleX);
         }
         _hasSolution = status == SolverStatus.Optimal;
 
@@ -308,9 +322,9 @@ public sealed class InteriorPointSolver
     {
         int n = _n, p = _p;
         double tau = _tau;
-        double[] q = _pg.QArray, b = _pg.BArray, h = _pg.HArray;
+        double[] q = _qs, b = _pg.BArray, h = _pg.HArray;
         Array.Clear(_px);
-        _pg.P.SymmetricUpperMultiplyAdd(1, _x, _px);
+        _pg.P.SymmetricUpperMultiplyAdd(_c, _x, _px);
         xPx = Dot(_px, _x);
         Array.Clear(_mtz);
         _pg.A.TransposeMultiplyAdd(1, _z.AsSpan(0, p), _mtz);
@@ -454,9 +468,10 @@ public sealed class InteriorPointSolver
 
     private static double SocResidual(ReadOnlySpan<double> u)
     {
-        double r = u[0] * u[0];
-        for (int i = 1; i < u.Length; i++) r -= u[i] * u[i];
-        return u[0] > 0 ? r : -1;
+        double n2 = 0;
+        for (int i = 1; i < u.Length; i++) n2 += u[i] * u[i];
+        double nrm = Math.Sqrt(n2);
+        return u[0] > nrm ? (u[0] - nrm) * (u[0] + nrm) : -1;
     }
 
     private static void SocApplyW(ReadOnlySpan<double> w, double eta, ReadOnlySpan<double> v, Span<double> y)
@@ -554,11 +569,11 @@ public sealed class InteriorPointSolver
     private bool InitialPoint()
     {
         int n = _n, p = _p, mg = _mg;
-        double[] q = _pg.QArray, b = _pg.BArray, h = _pg.HArray;
+        double[] q = _qs, b = _pg.BArray, h = _pg.HArray;
         Array.Clear(_hUpper);
         for (int i = 0; i < p; i++) _hDiag[i] = 0;
         for (int i = 0; i < mg; i++) _hDiag[p + i] = 1;
-        if (!_kkt.Factor(_hDiag, _hUpper, _o.StaticRegularization)) return false;
+        if (!_kkt.Factor(_c, _hDiag, _hUpper, _o.StaticRegularization)) return false;
         for (int j = 0; j < n; j++) _rhs[j] = -q[j];
         for (int i = 0; i < p; i++) _rhs[n + i] = b[i];
         for (int i = 0; i < mg; i++) _rhs[n + p + i] = h[i];
@@ -591,10 +606,10 @@ public sealed class InteriorPointSolver
     {
         int n = _n, p = _p, mg = _mg;
         for (int j = 0; j < n; j++) _x[j] = _xs[j];
-        for (int i = 0; i < p; i++) { _z[i] = _ys[i]; _s[i] = 0; }
+        for (int i = 0; i < p; i++) { _z[i] = _ys[i] * _c; _s[i] = 0; }
         // Push each cone component a margin inside the cone.
         const double margin = 1e-2;
-        for (int i = 0; i < mg; i++) { _s[p + i] = _ss[i]; _z[p + i] = _zs[i]; }
+        for (int i = 0; i < mg; i++) { _s[p + i] = _ss[i]; _z[p + i] = _zs[i] * _c; }
         var s = _s.AsSpan(p);
         var z = _z.AsSpan(p);
         for (int i = 0; i < _l; i++)

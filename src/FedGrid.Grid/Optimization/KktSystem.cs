@@ -125,17 +125,17 @@ internal sealed class KktSystem
     public int RegularisedPivots => _ldl.RegularisedPivots;
 
     /// <summary>
-    /// Writes K's values: the program's P, A and G, and −H on the constraint block where
+    /// Writes K's values: the program's P (times <paramref name="pScale"/>), A and G, and −H on the constraint block where
     /// <paramref name="rowDiag"/> holds H's diagonal per constraint row (0 on equality rows) and
     /// <paramref name="socUpper"/> H's strictly upper entries of each cone block, row by row.
     /// Then factorises with static regularisation <paramref name="delta"/>.
     /// </summary>
-    public bool Factor(ReadOnlySpan<double> rowDiag, ReadOnlySpan<double> socUpper, double delta)
+    public bool Factor(double pScale, ReadOnlySpan<double> rowDiag, ReadOnlySpan<double> socUpper, double delta)
     {
         double[] kv = _kv, kf = _kf;
         Array.Clear(kv);
         var pv = _program.P.ValueArray;
-        for (int e = 0; e < pv.Length; e++) kv[_destP[e]] += pv[e];
+        for (int e = 0; e < pv.Length; e++) kv[_destP[e]] += pScale * pv[e];
         var av = _program.A.ValueArray;
         for (int e = 0; e < av.Length; e++) kv[_destA[e]] += av[e];
         var gv = _program.G.ValueArray;

@@ -56,7 +56,7 @@ public class InteriorPointSolverTests
         }
         var solver = Solve(bld.Build(), out var r);
         Assert.Equal(SolverStatus.Optimal, r.Status);
-        for (int i = 0; i < n; i++) Assert.Equal(expected[i], solver.X[i], 6);
+        for (int i = 0; i < n; i++) Assert.Equal(expected[i], solver.X[i], 5);
         Assert.Equal(expectedObj, r.PrimalObjective, 6);
         Assert.True(r.Iterations < 30, $"took {r.Iterations} iterations");
     }
