@@ -10,14 +10,17 @@ namespace FedGrid.TestSupport;
 internal static class TestFeeders
 {
     /// <summary>Path of a file under tests/data, found by walking up from the running assembly.</summary>
-    public static string DataFile(string name)
+    public static string DataFile(string name) => RepoFile(Path.Combine("tests", "data", name));
+
+    /// <summary>Path of a file given relative to the repository root, found by walking up from the running assembly.</summary>
+    public static string RepoFile(string relative)
     {
         for (var dir = new DirectoryInfo(AppContext.BaseDirectory); dir is not null; dir = dir.Parent)
         {
-            string candidate = Path.Combine(dir.FullName, "tests", "data", name);
+            string candidate = Path.Combine(dir.FullName, relative);
             if (File.Exists(candidate)) return candidate;
         }
-        throw new FileNotFoundException($"tests/data/{name} not found above {AppContext.BaseDirectory}");
+        throw new FileNotFoundException($"{relative} not found above {AppContext.BaseDirectory}");
     }
 
     public static IReadOnlyList<(string From, string To, double R, double X, double P, double Q)> BaranWuRows()

@@ -169,8 +169,9 @@ public sealed class InteriorPointSolver
             double tau = _tau, kappa = _kappa;
             double pres = InfNorm(_r2) / tau, dres = InfNorm(_r1) / tau;
             double qx = Dot(q, x), cz = Dot(b, z.AsSpan(0, p)) + Dot(h, z.AsSpan(p));
-            double pobj = (0.5 * xPx / tau + qx) / (tau);
-            double dobj = (-0.5 * xPx / tau - cz) / tau;
+            double c0 = _c * _pg.ObjectiveConstant;
+            double pobj = (0.5 * xPx / tau + qx) / tau + c0;
+            double dobj = (-0.5 * xPx / tau - cz) / tau + c0;
             double mxNorm = InfNorm(_mx) / tau, sNorm = InfNorm(s) / tau, pxNorm = InfNorm(_px) / tau, mtzNorm = InfNorm(_mtz) / tau;
             bool primalOk = pres <= _o.FeasibilityTolerance * (1 + Math.Max(cNorm, Math.Max(mxNorm, sNorm)));
             bool dualOk = dres <= _o.FeasibilityTolerance * (1 + Math.Max(qNorm, Math.Max(pxNorm, mtzNorm)));
@@ -263,7 +264,34 @@ public sealed class InteriorPointSolver
             _tau += alpha * dtau;
             _kappa += alpha * dkappa;
         }
+        if (status is SolverStatus.NumericalTrouble or SolverStatus.IterationLimit)
+            status = ReducedAccuracyCertificate(status);
         return Finish(status, iter);
+    }
+
+    /// <summary>
+    /// When the iteration breaks down (typically as τ → 0 on an infeasible problem), accepts the last
+    /// iterate as an infeasibility certificate at the looser <see cref="SolverOptions.ReducedInfeasibilityTolerance"/>.
+    /// Residuals are recomputed from the data first.
+    /// </summary>
+    private SolverStatus ReducedAccuracyCertificate(SolverStatus status)
+    {
+        Residuals(out _, out _);
+        double[] q = _qs, b = _pg.BArray, h = _pg.HArray;
+        int p = _p;
+        double tol = _o.ReducedInfeasibilityTolerance;
+        double qNorm = InfNorm(q), cNorm = Math.Max(InfNorm(b), InfNorm(h));
+        double qx = Dot(q, _x), cz = Dot(b, _z.AsSpan(0, p)) + Dot(h, _z.AsSpan(p));
+        if (!double.IsFinite(qx) || !double.IsFinite(cz)) return status;
+        if (cz < 0 && InfNorm(_mtz) <= tol * -cz * Math.Max(1, cNorm)) return SolverStatus.PrimalInfeasible;
+        if (qx < 0)
+        {
+            double ms = 0;
+            for (int i = 0; i < _m; i++) ms = Math.Max(ms, Math.Abs(_mx[i] + _s[i]));
+            double bound = tol * -qx * Math.Max(1, qNorm);
+            if (InfNorm(_px) <= bound && ms <= bound) return SolverStatus.DualInfeasible;
+        }
+        return status;
     }
 
     private SolverResult Finish(SolverStatus status, int iter)

@@ -112,6 +112,13 @@ internal sealed class KktSystem
                 src.Add(transpose ? (j + colOffset, ri[q] + rowOffset) : (ri[q] + rowOffset, j + colOffset));
     }
 
+    /// <summary>
+    /// Refinement stops once ‖b − Kx‖∞ ≤ this × (1 + ‖b‖∞), or when a step gains less than a factor 4
+    /// (the rounding floor). Newton directions need not be exact: residuals are recomputed from the
+    /// data at every iteration.
+    /// </summary>
+    internal const double RefinementTolerance = 1e-9;
+
     /// <summary>Size of K (variables plus constraint rows).</summary>
     public int Size => _size;
 
@@ -166,7 +173,7 @@ internal sealed class KktSystem
         }
         _ldl.Solve(x);
         double rnorm = Residual(b, x, r);
-        for (int step = 0; step < refinementSteps && rnorm > 1e-14 * (1 + bnorm); step++)
+        for (int step = 0; step < refinementSteps && rnorm > RefinementTolerance * (1 + bnorm); step++)
         {
             Array.Copy(r, dx, size);
             _ldl.Solve(dx);
@@ -178,7 +185,9 @@ internal sealed class KktSystem
                 break;
             }
             Array.Copy(dx, x, size);
+            bool slow = trial > 0.25 * rnorm; // at the rounding floor: further steps gain little
             rnorm = trial;
+            if (slow) break;
         }
         for (int i = 0; i < size; i++) solution[_perm[i]] = x[i];
         return rnorm;

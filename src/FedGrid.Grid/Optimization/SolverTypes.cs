@@ -30,6 +30,7 @@ public enum SolverStatus
 /// <param name="StaticRegularization">δ added to the (1,1) block and subtracted from the (2,2) block of the KKT matrix.</param>
 /// <param name="RefinementSteps">Iterative refinement steps per KKT solve at most.</param>
 /// <param name="StepFraction">Fraction of the step to the cone boundary taken.</param>
+/// <param name="ReducedInfeasibilityTolerance">Looser certificate tolerance applied once, to the last iterate, when the iteration stops on numerical trouble or the iteration limit (infeasible problems drive τ → 0, where directions lose accuracy).</param>
 /// <param name="WarmStart">Start from the previous solve's solution (pushed into the cone interior) instead of the default initial point.</param>
 public sealed record SolverOptions(
     double FeasibilityTolerance = 1e-9,
@@ -40,7 +41,8 @@ public sealed record SolverOptions(
     double StaticRegularization = 1e-9,
     int RefinementSteps = 8,
     double StepFraction = 0.99,
-    bool WarmStart = false)
+    bool WarmStart = false,
+    double ReducedInfeasibilityTolerance = 1e-5)
 {
     /// <summary>The default settings.</summary>
     public static SolverOptions Default { get; } = new();

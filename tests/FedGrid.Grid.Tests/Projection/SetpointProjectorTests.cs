@@ -39,7 +39,7 @@ public class SetpointProjectorTests
         Assert.True(r.AcVerified);
         Assert.True(r.MaxVoltageViolationPuBefore > 0.01, $"proposal violates by {r.MaxVoltageViolationPuBefore} pu only");
         Assert.True(r.MaxVoltageViolationPuAfter <= 1e-6);
-        Assert.True(r.MaxRelaxationGap < 1e-7, $"relaxation gap {r.MaxRelaxationGap}");
+        Assert.True(r.MaxRelaxationGap < 1e-6, $"relaxation gap {r.MaxRelaxationGap}");
         for (int u = 0; u < set.Units.Count; u++)
             Assert.InRange(r.SetpointKw[u], set.Input.MinKw[u], set.Input.MaxKw[u]);
         // Nearest feasible point: some limit binds in the exact flow (here the lower voltage limit, 0.95 pu).
