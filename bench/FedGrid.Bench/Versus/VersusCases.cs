@@ -5,6 +5,6 @@ internal static class VersusCases
 {
     public static IEnumerable<IVersusCase> All()
     {
-        yield break;
+        foreach (IVersusCase c in PowerFlowVersusCase.All()) yield return c;
     }
 }

@@ -33,10 +33,11 @@ public sealed class Feeder
     private readonly Dictionary<string, int> _indexById;
 
     private Feeder(string name, string? source, double baseMva, IReadOnlyList<Bus> buses, IReadOnlyList<Line> lines,
-        Substation substation, RadialNetwork network, Dictionary<string, int> indexById)
+        Substation substation, RadialNetwork network, Dictionary<string, int> indexById, IReadOnlyList<string>? notes)
     {
         Name = name;
         Source = source;
+        Notes = notes ?? [];
         BaseMva = baseMva;
         Buses = buses;
         Lines = lines;
@@ -50,6 +51,9 @@ public sealed class Feeder
 
     /// <summary>Where the data comes from (citation for published cases), if given.</summary>
     public string? Source { get; }
+
+    /// <summary>Free-text remarks carried with the feeder (e.g. which values are assumptions rather than published data).</summary>
+    public IReadOnlyList<string> Notes { get; }
 
     /// <summary>Three-phase power base in MVA for per-unit conversion.</summary>
     public double BaseMva { get; }
@@ -79,7 +83,12 @@ public sealed class Feeder
     /// every problem found, each with a locator such as <c>$.lines[3].to</c>.
     /// </summary>
     public static Feeder Create(string name, IReadOnlyList<Bus> buses, IReadOnlyList<Line> lines, Substation substation,
-        double baseMva = 1.0, string? source = null, string? fileName = null) =>
+        double baseMva = 1.0, string? source = null, string? fileName = null, IReadOnlyList<string>? notes = null) =>
+        CreateChecked(name, buses, lines, substation, baseMva, source, fileName, notes);
+
+    /// <summary>As <see cref="Create"/>, but a missing substation is reported as a validation problem.</summary>
+    internal static Feeder CreateChecked(string name, IReadOnlyList<Bus> buses, IReadOnlyList<Line> lines, Substation? substation,
+        double baseMva, string? source, string? fileName, IReadOnlyList<string>? notes) =>
         FeederValidator.Build(name, buses, lines, substation, baseMva, source, fileName,
-            (net, index) => new Feeder(name, source, baseMva, buses, lines, substation, net, index));
+            (net, index) => new Feeder(name, source, baseMva, buses, lines, substation!, net, index, notes));
 }

@@ -53,7 +53,7 @@ internal static class FeederValidator
         else
         {
             if (string.IsNullOrWhiteSpace(substation.SlackBus) || !index.ContainsKey(substation.SlackBus))
-                Add("$.substation.slackBus", $"substation bus '{substation.SlackBus}' is not a bus of the feeder");
+                Add("$.substation.bus", $"substation bus '{substation.SlackBus}' is not a bus of the feeder");
             if (!(substation.VoltageSetpointPu >= 0.8 && substation.VoltageSetpointPu <= 1.2))
                 Add("$.substation.voltagePu", $"substation voltage setpoint must be in [0.8, 1.2] pu, got {substation.VoltageSetpointPu}");
             if (!(substation.ImportLimitKw > 0 && substation.ImportLimitKw <= MaxLoadKw * 10))

@@ -95,7 +95,7 @@ public class SetpointProjectorTests
     [Fact]
     public void Substation_import_limit_binds_when_it_is_the_tightest()
     {
-        var feeder = TestFeeders.BaranWu(importKwPerCopy: 2500, vMin: 0.85);
+        var feeder = TestFeeders.BaranWu(vMin: 0.85, importKwPerCopy: 2500);
         var set = SyntheticUnitSet.Draw(feeder, 9);
         var r = new SetpointProjector(feeder, set.Units).Project(set.Input);
         Assert.Equal(ProjectionStatus.Projected, r.Status);
