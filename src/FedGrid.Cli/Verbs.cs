@@ -8,5 +8,6 @@ internal static class Verbs
     public static IEnumerable<Command> All()
     {
         yield return Commands.FlowCommand.Create();
+        yield return Commands.ProjectCommand.Create();
     }
 }
