@@ -87,7 +87,7 @@ public sealed class SetpointProjector
         }
         _model = Formulation.Formulate(_net, b, atBus, _options.LossWeightPerKw);
         _program = b.Build();
-        _solver = new InteriorPointSolver(_program, _options.Solver);
+        _solver = new InteriorPointSolver(_program, _options.Solver ?? ProjectionOptions.DefaultSolver);
         _flow = new AcPowerFlow(_net);
         _limits = new FeederLimits(_net);
         _baseP = new double[n];
