@@ -212,3 +212,25 @@ public class WarmStartTests
         Assert.True(warmIterations < coldIterations, $"warm {warmIterations} vs cold {coldIterations} iterations");
     }
 }
+
+public class KktFillTests
+{
+    [Fact]
+    public void Feeder_KKT_factor_grows_linearly_with_the_feeder()
+    {
+        // Minimum degree on the (nearly tree-shaped) branch flow KKT system: the factor's size per
+        // bus must not grow with the feeder, i.e. the fill stays O(n).
+        double PerBus(int copies)
+        {
+            var feeder = FedGrid.TestSupport.TestFeeders.BaranWu(copies);
+            var set = SyntheticUnitSet.Draw(feeder, 1);
+            var projector = new SetpointProjector(feeder, set.Units);
+            var s = projector.Solver;
+            int offDiagonal = s.KktNonZeros - s.KktSize;
+            Assert.True(s.FactorNonZeros <= 2.0 * offDiagonal, $"L has {s.FactorNonZeros} entries for {offDiagonal} off-diagonal KKT entries");
+            return (double)s.FactorNonZeros / feeder.Buses.Count;
+        }
+        double small = PerBus(1), large = PerBus(10);
+        Assert.InRange(large / small, 0.8, 1.2);
+    }
+}
