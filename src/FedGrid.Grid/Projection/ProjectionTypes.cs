@@ -159,8 +159,10 @@ public sealed class ProjectionResult
 /// </summary>
 public sealed class FeederLimits
 {
-    internal FeederLimits(RadialNetwork net)
+    /// <summary>The limits of <paramref name="net"/> as the feeder states them (a formulation used outside the projector starts from these).</summary>
+    public FeederLimits(RadialNetwork net)
     {
+        ArgumentNullException.ThrowIfNull(net);
         VMinPu = (double[])net.VMinPu.Clone();
         VMaxPu = (double[])net.VMaxPu.Clone();
         CurrentLimitPu = (double[])net.CurrentLimitPu.Clone();
