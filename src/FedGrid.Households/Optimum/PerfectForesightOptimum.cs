@@ -128,6 +128,21 @@ public sealed class PerfectForesightOptimum
     }
 
     /// <summary>
+    /// The cone program <see cref="SolveWindow"/> would solve from the environment's current state, for export
+    /// (<see cref="ConeProgramExchange"/>) to an outside solver. Its objective is the window's cost plus the small loss term
+    /// (<see cref="OptimumOptions.LossWeightPerKw"/>).
+    /// </summary>
+    public ConeProgram BuildProgram(DemandResponseEnvironment environment, int slotCount = SlotCalendar.SlotsPerDay)
+    {
+        ArgumentNullException.ThrowIfNull(environment);
+        if (!ReferenceEquals(environment.Scenario, _scenario)) throw new ArgumentException("the environment runs another scenario", nameof(environment));
+        int start = environment.Slot;
+        if (slotCount <= 0 || start + slotCount > _scenario.SlotCount)
+            throw new ArgumentException($"window of {slotCount} slots from slot {start} leaves the horizon of {_scenario.SlotCount} slots", nameof(slotCount));
+        return new WindowModel(_scenario, environment, start, slotCount, _options.LossWeightPerKw).Program;
+    }
+
+    /// <summary>
     /// Resets <paramref name="environment"/> and, day after day, solves the day from the environment's state at midnight
     /// and replays its appliance schedule through <see cref="DemandResponseEnvironment.StepAppliances"/>.
     /// </summary>
