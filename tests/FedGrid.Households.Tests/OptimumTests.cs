@@ -133,6 +133,24 @@ public class OptimumTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void Whole_horizon_program_is_at_most_the_chained_days()
+    {
+        // The chained days' schedule is a feasible point of the two-day program (same start, same constraints), so the
+        // two-day optimum costs at most their exact sum; the program's own day figures are lower bounds of it.
+        var sc = DefaultScenario.Create(days: 2);
+        var env = new DemandResponseEnvironment(sc);
+        var opt = new PerfectForesightOptimum(sc);
+        var chained = opt.Run(env);
+        env.Reset();
+        var joint = opt.SolveWindow(env, sc.SlotCount);
+        output.WriteLine($"joint {joint.CostDollars:F3} $ ({joint.SolveMs:F0} ms, {joint.Variables} variables); chained exact {chained.Sum(d => d.Replay.CostDollars):F3} $");
+        Assert.Equal(SolverStatus.Optimal, joint.Status);
+        Assert.True(joint.CostDollars <= chained.Sum(d => d.Replay.CostDollars) + 1e-6);
+        var replay = PerfectForesightOptimum.Replay(env, joint);
+        Assert.Equal(joint.ExactCostDollars, replay.CostDollars, 1e-6 * replay.CostDollars);
+    }
+
+    [Fact]
     public void Household_setpoints_through_the_split_rule_cost_at_least_the_optimum()
     {
         // The environment's split rule is a restriction the program relaxes: the household totals of the optimum,
