@@ -17,6 +17,8 @@ namespace FedGrid.Grid.Projection;
 /// (weight × Σ r ℓ in kW), which makes the relaxation exact on radial feeders under mild conditions
 /// and pins ℓ, which the distance objective alone leaves free. On a radial feeder this relaxation is
 /// equivalent to the semidefinite relaxation (Bose, Low, Teeraratkul &amp; Hassibi 2015).
+/// The program is written on a power base of 1 MVA whatever the feeder file's base (a rescaling
+/// that leaves the equations unchanged and keeps distribution-feeder numbers of order one).
 /// </summary>
 public sealed class ConeRelaxationFormulation : IFeederFormulation
 {
@@ -58,11 +60,18 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
     private readonly int _slackRow, _importRow;
     private readonly Dictionary<int, (string Kind, int Bus)> _rowNames = [];
     private double _importLimitPu, _baseSlackP;
+    // The program works on its own power base of 1 MVA, whatever the feeder file's base: k = S_file / S_int.
+    // Powers scale by k, impedances by 1/k, squared currents by k², squared voltages not at all — the
+    // equations are unchanged, and the numbers stay of order one for distribution feeders.
+    private const double InternalBaseMva = 1.0;
+    private readonly double _k;
 
     public BranchFlowModel(RadialNetwork net, ConeProgramBuilder b, IReadOnlyList<UnitInjection>[] unitsAtBus, bool withLosses, double lossWeightPerKw)
     {
         _net = net;
         _losses = withLosses;
+        _k = net.BaseMva / InternalBaseMva;
+        double kb = _k;
         int n = net.BusCount, slack = net.SlackIndex;
         _pv = new Variable[n]; _qv = new Variable[n]; _lv = new Variable[n]; _vv = new Variable[n];
         _pBal = new int[n]; _qBal = new int[n]; _vLow = new int[n]; _vUp = new int[n]; _lUp = new int[n]; _curCone = new int[n];
@@ -94,12 +103,12 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
             }
         }
         _slackRow = b.AddEquality(LinearExpression.Of(_vv[slack]), net.SlackVoltagePu * net.SlackVoltagePu);
-        double kwPerPu = net.ToKw(1);
+        double kwPerPu = 1000 * InternalBaseMva;
         foreach (int j in net.Order)
         {
             if (j == slack) continue;
             int i = net.Parent[j];
-            double r = net.R[j], x = net.X[j];
+            double r = net.R[j] / kb, x = net.X[j] / kb;
             // P_ij − r ℓ − Σ_k P_jk − Σ_u c_u p_u = p_base,j   (and Q likewise)
             var pe = LinearExpression.Of(_pv[j]);
             var qe = LinearExpression.Of(_qv[j]);
@@ -115,8 +124,8 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
             }
             foreach (var u in unitsAtBus[j])
             {
-                pe.Add(u.Setpoint, -u.PPuPerKw);
-                qe.Add(u.Setpoint, -u.QPuPerKw);
+                pe.Add(u.Setpoint, -u.PPuPerKw * kb);
+                qe.Add(u.Setpoint, -u.QPuPerKw * kb);
             }
             _pBal[j] = b.AddEquality(pe, 0);
             _qBal[j] = b.AddEquality(qe, 0);
@@ -136,7 +145,7 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
         // Substation import: Σ_{children of slack} P + Σ_{units at slack} c p ≤ limit − p_base,slack
         var imp = new LinearExpression();
         foreach (int k in children[slack]) imp.Add(_pv[k]);
-        foreach (var u in unitsAtBus[slack]) imp.Add(u.Setpoint, u.PPuPerKw);
+        foreach (var u in unitsAtBus[slack]) imp.Add(u.Setpoint, u.PPuPerKw * kb);
         _importRow = b.AddLessOrEqual(imp, 1);
         _rowNames[_importRow] = ("substation import limit", slack);
     }
@@ -147,10 +156,10 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
         for (int j = 0; j < _net.BusCount; j++)
         {
             if (_pBal[j] < 0) continue;
-            bv[_pBal[j]] = basePPu[j];
-            bv[_qBal[j]] = baseQPu[j];
+            bv[_pBal[j]] = basePPu[j] * _k;
+            bv[_qBal[j]] = baseQPu[j] * _k;
         }
-        _baseSlackP = basePPu[_net.SlackIndex];
+        _baseSlackP = basePPu[_net.SlackIndex] * _k;
         program.H[_importRow] = _importLimitPu - _baseSlackP;
     }
 
@@ -158,17 +167,18 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
     {
         var h = program.H;
         var net = _net;
+        double k = _k;
         for (int j = 0; j < net.BusCount; j++)
         {
             if (_vLow[j] < 0) continue;
             h[_vLow[j]] = -limits.VMinPu[j] * limits.VMinPu[j];
             h[_vUp[j]] = limits.VMaxPu[j] * limits.VMaxPu[j];
-            double imax = Math.Max(limits.CurrentLimitPu[j], 0);
+            double imax = Math.Max(limits.CurrentLimitPu[j], 0) * k;
             if (_losses) h[_lUp[j]] = imax * imax;
             else h[program.SecondOrderRowStart(_curCone[j])] = imax * limits.VMinPu[net.Parent[j]];
         }
-        _importLimitPu = limits.ImportLimitPu;
-        _baseSlackP = basePPu[net.SlackIndex];
+        _importLimitPu = limits.ImportLimitPu * k;
+        _baseSlackP = basePPu[net.SlackIndex] * k;
         h[_importRow] = _importLimitPu - _baseSlackP;
         program.B[_slackRow] = net.SlackVoltagePu * net.SlackVoltagePu;
     }
@@ -176,13 +186,14 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
     public void Recover(ReadOnlySpan<double> x, Span<double> voltagePu, Span<double> relaxationGapPu)
     {
         var net = _net;
+        double k2 = _k * _k;
         for (int j = 0; j < net.BusCount; j++)
         {
             voltagePu[j] = Math.Sqrt(Math.Max(x[_vv[j].Index], 0));
             relaxationGapPu[j] = 0;
             if (!_losses || net.Parent[j] < 0) continue;
             double p = x[_pv[j].Index], q = x[_qv[j].Index], l = x[_lv[j].Index], vi = x[_vv[net.Parent[j]].Index];
-            relaxationGapPu[j] = l * vi - p * p - q * q;
+            relaxationGapPu[j] = (l * vi - p * p - q * q) / k2;
         }
     }
 

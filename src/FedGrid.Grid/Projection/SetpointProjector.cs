@@ -87,7 +87,7 @@ public sealed class SetpointProjector
         }
         _model = Formulation.Formulate(_net, b, atBus, _options.LossWeightPerKw);
         _program = b.Build();
-        _solver = new InteriorPointSolver(_program, _options.Solver);
+        _solver = new InteriorPointSolver(_program, _options.Solver ?? ProjectionOptions.DefaultSolver);
         _flow = new AcPowerFlow(_net);
         _limits = new FeederLimits(_net);
         _baseP = new double[n];
@@ -261,8 +261,8 @@ public sealed class SetpointProjector
             h[_upRow[u]] = input.MaxKw[u];
         }
         _program.ObjectiveConstant = constant;
-        _model.SetLimits(_program, _limits, _baseP);
         _model.SetBaseLoad(_program, _baseP, _baseQ);
+        _model.SetLimits(_program, _limits, _baseP);
     }
 
     /// <summary>AC power flow at the given setpoints; true when it converged and no limit is broken beyond tolerance.</summary>
