@@ -10,6 +10,8 @@ namespace FedGrid.Bench.Households;
 /// about 12 900 variables, 29 000 constraint rows): building the program and solving it with the interior-point
 /// solver. Goal: seconds, not minutes, on the 2-core build machine. <c>Week</c> solves the 7-day horizon as one
 /// program (about 94 000 variables) to show how the time grows with the horizon.
+/// Measured (ShortRun, shared 2-core machine, 2026-12-01): Day 1.56 s (65 MB allocated), Week 20.1 s (514 MB), ratio 13
+/// for 7 times the slots.
 /// </summary>
 [MemoryDiagnoser]
 [MedianColumn]
