@@ -73,3 +73,15 @@ public class TrainCommandTests
         Assert.Contains(message, e.Message);
     }
 }
+
+public class TrainProcessTests
+{
+    [Fact]
+    public void Unknown_mode_exits_with_code_2_and_names_the_modes()
+    {
+        var (code, stdout, stderr) = CliProcess.Run("train", "--mode", "federated", "--days", "1");
+        Assert.Equal(2, code);
+        Assert.Equal("", stdout);
+        Assert.Contains("--mode: unknown mode 'federated'; available: centralized", stderr);
+    }
+}
