@@ -38,6 +38,13 @@ namespace FedGrid.Grid.Optimization;
 /// of size m costs m²/2 entries. No memory is allocated by <see cref="Solve"/>.
 /// </para>
 /// <para>
+/// <b>Scaling of the data.</b> The iteration works on (cP, cq) with c = 1/max(1, max|P|, ‖q‖∞), which
+/// leaves x unchanged and scales the multipliers by c (undone on output). When the iteration stops on
+/// numerical trouble or the iteration limit, the last iterate is tested once more as an infeasibility
+/// certificate at <see cref="SolverOptions.ReducedInfeasibilityTolerance"/>: on infeasible problems τ → 0
+/// and the directions lose accuracy before the strict certificate test passes.
+/// </para>
+/// <para>
 /// <b>Initial point.</b> As in CVXOPT's coneqp: solve the KKT system with W = I and right-hand side
 /// [−q; c], set s = −z on the cone rows, and shift s and z into the interior by (1 + α)e where α is
 /// the most negative eigenvalue, if needed; τ = κ = 1. With <see cref="SolverOptions.WarmStart"/>
@@ -108,8 +115,6 @@ public sealed class InteriorPointSolver
 
     /// <summary>The program this solver was built for (its values are re-read at every solve).</summary>
     public ConeProgram Program => _pg;
-
-    internal static bool DebugTrace = Environment.GetEnvironmentVariable("FEDGRID_IPM_TRACE") == "1";
 
     /// <summary>The settings.</summary>
     public SolverOptions Options => _o;
@@ -200,7 +205,6 @@ public sealed class InteriorPointSolver
                 }
             }
             if (iter >= _o.MaxIterations) break;
-            if (DebugTrace) Console.Error.WriteLine($"it {iter} pres {pres:E2} dres {dres:E2} pobj {pobj:E6} dobj {dobj:E6} tau {tau:E2} kap {kappa:E2} cz {cz:E2} mtz {InfNorm(_mtz):E2}");
 
             // Scaling, KKT factorisation, and the fixed right-hand side [−q; c].
             if (!Scaling())
@@ -249,7 +253,6 @@ public sealed class InteriorPointSolver
                 break;
             }
             double alpha = Math.Min(1, _o.StepFraction * StepLength(_ds, _dz, dtau, dkappa));
-            if (DebugTrace) Console.Error.WriteLine($"   alphaA {alphaA:E2} sigma {sigma:E2} alpha {alpha:E2} mu {mu:E2} dtau {dtau:E2} regs {_kkt.RegularisedPivots}");
             if (!(alpha > 1e-10))
             {
                 if (++stalls >= 3)
