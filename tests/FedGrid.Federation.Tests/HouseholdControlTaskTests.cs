@@ -149,4 +149,26 @@ public class HouseholdControlTaskTests
         Assert.Equal(first, again);
         Assert.Equal(0, task.Day);
     }
+
+    [Fact]
+    public void A_slot_with_projection_allocates_nothing_after_warm_up()
+    {
+        var task = new HouseholdControlTask(TwoDays);
+        int n = task.AgentCount;
+        float[] state = new float[n * task.StateSizePerAgent], lo = new float[n], hi = new float[n], cost = new float[n];
+        for (int t = 0; t < 4; t++)
+        {
+            task.Observe(state);
+            task.GetBounds(lo, hi);
+            task.Step(hi, cost);
+        }
+        long before = GC.GetAllocatedBytesForCurrentThread();
+        for (int t = 4; t < 95; t++) // the rest of day 1 up to (not including) its last slot, which writes the day's record
+        {
+            task.Observe(state);
+            task.GetBounds(lo, hi);
+            task.Step(hi, cost); // desired power: the evening peak needs projections
+        }
+        Assert.Equal(0, GC.GetAllocatedBytesForCurrentThread() - before);
+    }
 }
