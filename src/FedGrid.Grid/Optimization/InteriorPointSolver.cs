@@ -228,10 +228,10 @@ public sealed class InteriorPointSolver
             for (int j = 0; j < n; j++) _qp2[j] = q[j] + 2 * _px[j] / tau;
             double xiPxi = xPx / (tau * tau);
 
-            // Predictor: d_s = −λ∘λ, d_κ = −τκ, full residual.
+            // Predictor: d_s = −λ∘λ, d_κ = −τκ, full residual (unrefined: it only sets σ and the corrector term).
             ConeProduct(_lambda, _lambda, _dS);
             for (int i = 0; i < _mg; i++) _dS[i] = -_dS[i];
-            if (!Direction(1.0, r3, -tau * kappa, xiPxi, _dxa, _dsa, _dza, out double dtauA, out double dkapA))
+            if (!Direction(1.0, r3, -tau * kappa, xiPxi, _dxa, _dsa, _dza, out double dtauA, out double dkapA, refinementSteps: 0))
             {
                 status = SolverStatus.NumericalTrouble;
                 break;
@@ -247,7 +247,7 @@ public sealed class InteriorPointSolver
             for (int i = 0; i < _mg; i++) _dS[i] = -_dS[i] - _wu[i];
             AddIdentity(_dS, sigma * mu);
             double dkap = -tau * kappa - dtauA * dkapA + sigma * mu;
-            if (!Direction(1 - sigma, r3, dkap, xiPxi, _dx, _ds, _dz, out double dtau, out double dkappa))
+            if (!Direction(1 - sigma, r3, dkap, xiPxi, _dx, _ds, _dz, out double dtau, out double dkappa, _o.RefinementSteps))
             {
                 status = SolverStatus.NumericalTrouble;
                 break;
@@ -373,7 +373,7 @@ public sealed class InteriorPointSolver
     /// Solves the linearised embedding for residual weight η and complementarity targets d_s (in
     /// <see cref="_dS"/>) and d_κ; writes Δx, Δs, Δz, Δτ, Δκ.
     /// </summary>
-    private bool Direction(double etaW, double r3, double dkap, double xiPxi, double[] dx, double[] ds, double[] dz, out double dtau, out double dkappa)
+    private bool Direction(double etaW, double r3, double dkap, double xiPxi, double[] dx, double[] ds, double[] dz, out double dtau, out double dkappa, int refinementSteps)
     {
         int n = _n, p = _p, mg = _mg;
         double tau = _tau, kappa = _kappa;
@@ -384,7 +384,7 @@ public sealed class InteriorPointSolver
         for (int j = 0; j < n; j++) _rhs[j] = -etaW * _r1[j];
         for (int i = 0; i < p; i++) _rhs[n + i] = -etaW * _r2[i];
         for (int i = 0; i < mg; i++) _rhs[n + p + i] = -etaW * _r2[p + i] - _wu[i];
-        _kkt.Solve(_rhs, _sol, _o.RefinementSteps);
+        _kkt.Solve(_rhs, _sol, refinementSteps);
         Array.Copy(_sol, _x1, n);
         Array.Copy(_sol, n, _z1, 0, _m);
         double num = -etaW * r3 - dkap / tau - Dot(_qp2, _x1) - Dot(b, _z1.AsSpan(0, p)) - Dot(h, _z1.AsSpan(p));
