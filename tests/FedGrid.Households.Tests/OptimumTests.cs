@@ -197,7 +197,7 @@ public class OptimumTests(ITestOutputHelper output)
     public void Day_program_agrees_with_CVXOPT()
     {
         // Outside check: two households of the default scenario (vehicle + water heater; vehicle + heat pump) on the
-        // default feeder, the 8 slots 21:30-23:30 of Monday (price falls to off-peak at 22:00 with a vehicle plugged in), exported in
+        // default feeder, the 4 slots 21:30-22:30 of Monday (price falls to off-peak at 22:00 with a vehicle plugged in), exported in
         // FedGrid's cone-program exchange format and solved with CVXOPT coneqp (Debian python3-cvxopt) by
         // tests/reference/cone_reference.py: same objective within 1e-6 relative.
         var full = DefaultScenario.Create(days: 2);
@@ -214,14 +214,14 @@ public class OptimumTests(ITestOutputHelper output)
         for (int k = 0; k < start; k++) { env.FlexDesiredKw.CopyTo(sp); env.Step(sp, r); }
         Assert.NotNull(env.CurrentSession(0));
         var opt = new PerfectForesightOptimum(sc);
-        var program = opt.BuildProgram(env, 8);
+        var program = opt.BuildProgram(env, 4);
         string dir = Path.Combine(Path.GetTempPath(), "fedgrid-optimum-" + Environment.ProcessId);
         Directory.CreateDirectory(dir);
         string file = Path.Combine(dir, "window.json");
         ConeProgramExchange.WriteFile(program, file);
         var solver = new InteriorPointSolver(program);
         var ours = solver.Solve();
-        var day = opt.SolveWindow(env, 8);
+        var day = opt.SolveWindow(env, 4);
         var theirs = CvxoptReference.Solve([file])[0];
         output.WriteLine($"ours {ours.PrimalObjective:R} ({ours.Iterations} it), CVXOPT {theirs.Objective:R} ({theirs.Status}, {theirs.MedianMs:F0} ms), {program.VariableCount} variables, start slot {start}");
         Assert.Equal(SolverStatus.Optimal, ours.Status);
