@@ -88,7 +88,7 @@ public sealed record ProjectionOptions(
 }
 
 /// <summary>
-/// The outcome of one projection; a reusable object that <see cref="SetpointProjector.Project"/>
+/// The outcome of one projection; a reusable object that <see cref="SetpointProjector.Project(ProjectionInput, ProjectionResult)"/>
 /// overwrites (arrays are allocated once for the projector's feeder and units).
 /// </summary>
 public sealed class ProjectionResult

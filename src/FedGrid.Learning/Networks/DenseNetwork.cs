@@ -193,7 +193,7 @@ public sealed class DenseNetwork
 
     /// <summary>Full forward pass on the concatenated input; the result is in <paramref name="output"/> and the workspace.</summary>
     /// <param name="input">Concatenated input of every block (length <see cref="NetworkShape.InputSize"/>).</param>
-    /// <param name="workspace">Buffers for this network, remembered for <see cref="Backward"/>.</param>
+    /// <param name="workspace">Buffers for this network, remembered for <see cref="Backward(NetworkWorkspace, ReadOnlySpan{float}, Span{float})"/>.</param>
     /// <param name="output">Receives the linear outputs (length <see cref="NetworkShape.OutputSize"/>).</param>
     public void Forward(ReadOnlySpan<float> input, NetworkWorkspace workspace, Span<float> output)
     {
@@ -228,7 +228,7 @@ public sealed class DenseNetwork
     /// <param name="block">The household's block m.</param>
     /// <param name="blockInput">x_m (length n_m).</param>
     /// <param name="otherPartialSums">Σ_{k≠m} W_k x_k (length H₁).</param>
-    /// <param name="workspace">Buffers, remembered for <see cref="Backward"/>.</param>
+    /// <param name="workspace">Buffers, remembered for <see cref="Backward(NetworkWorkspace, ReadOnlySpan{float}, Span{float})"/>.</param>
     /// <param name="output">Receives the outputs.</param>
     public void ForwardSplit(int block, ReadOnlySpan<float> blockInput, ReadOnlySpan<float> otherPartialSums, NetworkWorkspace workspace, Span<float> output)
     {
