@@ -39,7 +39,7 @@ public sealed record SolverOptions(
     double InfeasibilityTolerance = 1e-8,
     int MaxIterations = 100,
     double StaticRegularization = 1e-9,
-    int RefinementSteps = 8,
+    int RefinementSteps = 2,
     double StepFraction = 0.99,
     bool WarmStart = false,
     double ReducedInfeasibilityTolerance = 1e-5)

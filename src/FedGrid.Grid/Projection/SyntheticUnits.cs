@@ -1,4 +1,5 @@
 using FedGrid.Grid.Feeders;
+using FedGrid.Grid.Numerics;
 
 namespace FedGrid.Grid.Projection;
 
@@ -22,7 +23,7 @@ public sealed record SyntheticUnitSet(IReadOnlyList<FlexibleUnit> Units, Project
     {
         if (!(baseShare >= 0 && baseShare <= 1)) throw new ArgumentException($"base share must be in [0, 1], got {baseShare}");
         if (!(overload > 0) || !double.IsFinite(overload)) throw new ArgumentException($"overload must be positive, got {overload}");
-        var rng = new SplitMix64(seed);
+        var rng = new SeededRandom(seed);
         var units = new List<FlexibleUnit>();
         var mins = new List<double>();
         var maxs = new List<double>();
@@ -64,19 +65,3 @@ public sealed record SyntheticUnitSet(IReadOnlyList<FlexibleUnit> Units, Project
     }
 }
 
-/// <summary>SplitMix64 (Steele, Lea &amp; Flood, "Fast splittable pseudorandom number generators", OOPSLA 2014): a small, seeded, portable generator.</summary>
-internal sealed class SplitMix64(ulong seed)
-{
-    private ulong _state = seed;
-
-    public ulong NextUInt64()
-    {
-        ulong z = _state += 0x9E3779B97F4A7C15UL;
-        z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9UL;
-        z = (z ^ (z >> 27)) * 0x94D049BB133111EBUL;
-        return z ^ (z >> 31);
-    }
-
-    /// <summary>Uniform in [0, 1) with 53 random bits.</summary>
-    public double NextDouble() => (NextUInt64() >> 11) * (1.0 / (1UL << 53));
-}
