@@ -124,6 +124,8 @@ public sealed class HouseholdAgent
     /// <summary>The household's critic network.</summary>
     public DenseNetwork Critic => _critic ?? throw new InvalidOperationException("not admitted yet");
 
+    internal TransitionBuffer? Buffer => _buffer;
+
     /// <summary>Transitions in the household's buffer.</summary>
     public int BufferedTransitions => _buffer?.Count ?? 0;
 

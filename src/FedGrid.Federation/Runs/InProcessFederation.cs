@@ -69,7 +69,16 @@ public sealed class InProcessFederation : ICoordinatorOutbox
     private readonly HouseholdAgent[] _agents;
     private readonly Queue<HouseholdMessage> _inbox = new();
     private readonly IFederationScheme _scheme;
-    private long _wireBytes;
+    private readonly List<DayMetrics> _days = [];
+    private readonly Stopwatch _watch = new();
+    private readonly float[] _state, _actions, _costs;
+    private readonly double[] _truthBase, _truthMin, _truthDes;
+    private readonly HouseholdMessage?[] _replies;
+    private readonly LearningRandom _dropout;
+    private GroundTruthWriter? _truth;
+    private long _wireBytes, _step;
+    private int _dayProjections, _dayUnverified, _dayInfeasible, _dayFailures;
+    private bool _started;
 
     /// <summary>Sets up the households and the coordinator for a scenario.</summary>
     /// <param name="scenario">The scenario (its days are the budget).</param>
@@ -114,6 +123,14 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         }
         Coordinator = new Coordinator(setup, transcript ?? NullTranscript.Instance);
         _agents = new HouseholdAgent[n];
+        _state = new float[n * features];
+        _actions = new float[n];
+        _costs = new float[n];
+        _truthBase = new double[n];
+        _truthMin = new double[n];
+        _truthDes = new double[n];
+        _replies = new HouseholdMessage?[n];
+        _dropout = new LearningRandom(LearningRandom.DeriveSeed(fed.Learning.Seed, 0xD809UL));
         for (int m = 0; m < n; m++)
         {
             Household h = scenario.Households[m];
@@ -154,122 +171,161 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         }
     }
 
-    /// <summary>Runs every day of the scenario.</summary>
-    /// <param name="progress">Called after each day, or null.</param>
-    /// <returns>The result.</returns>
-    public FederatedRunResult Run(Action<DayMetrics>? progress = null)
+    /// <summary>Decision steps taken so far.</summary>
+    public long StepCount => _step;
+
+    /// <summary>Whether every slot of the scenario has been stepped.</summary>
+    public bool Done => _task.HorizonOver;
+
+    /// <summary>The days finished so far.</summary>
+    public IReadOnlyList<DayMetrics> Days => _days;
+
+    /// <summary>Admits every household (join requests, admissions, initial model). Called by the first <see cref="StepOnce"/> if needed.</summary>
+    public void Start()
     {
-        var watch = Stopwatch.StartNew();
-        int n = _agents.Length, features = _task.StateSizePerAgent;
-        FederationOptions fed = _options.Federation;
-        var dropout = new LearningRandom(LearningRandom.DeriveSeed(fed.Learning.Seed, 0xD809UL));
-        using GroundTruthWriter? truth = _options.GroundTruthPath is null ? null : new GroundTruthWriter(_options.GroundTruthPath);
+        if (_started)
+        {
+            return;
+        }
+        _started = true;
+        _watch.Start();
+        if (_options.GroundTruthPath is not null)
+        {
+            _truth = new GroundTruthWriter(_options.GroundTruthPath);
+        }
         foreach (HouseholdAgent a in _agents)
         {
             Deliver(a.Join());
         }
         Drain();
-        float[] state = new float[n * features], actions = new float[n], costs = new float[n];
-        var replies = new HouseholdMessage?[n];
-        double[] truthBase = new double[n], truthMin = new double[n], truthDes = new double[n];
-        var days = ImmutableArray.CreateBuilder<DayMetrics>(_task.DayCount);
-        int dayProjections = 0, dayUnverified = 0, dayInfeasible = 0, dayFailures = 0;
-        _task.Reset(fed.Learning.Seed);
-        long step = 0;
-        while (true)
+        _task.Reset(_options.Federation.Learning.Seed);
+    }
+
+    /// <summary>Runs one decision step for every household: partial sums, sums replies, proposals, projection, setpoints, the world's slot, costs, and at a round's end the training, uploads and broadcast.</summary>
+    /// <param name="progress">Called when the step ends a day, or null.</param>
+    /// <returns>False when the horizon is over (nothing was stepped).</returns>
+    public bool StepOnce(Action<DayMetrics>? progress = null)
+    {
+        Start();
+        if (_task.HorizonOver)
         {
-            _task.Observe(state);
-            ReadOnlySpan<double> baseKw = _task.Environment.BaseKw, min = _task.Environment.FlexMinKw, des = _task.Environment.FlexDesiredKw;
+            return false;
+        }
+        int n = _agents.Length, features = _task.StateSizePerAgent;
+        FederationOptions fed = _options.Federation;
+        long step = _step;
+        _task.Observe(_state);
+        ReadOnlySpan<double> baseKw = _task.Environment.BaseKw, min = _task.Environment.FlexMinKw, des = _task.Environment.FlexDesiredKw;
+        for (int m = 0; m < n; m++)
+        {
+            Deliver(_agents[m].BeginStep(step, _state.AsSpan(m * features, features), min[m], des[m], baseKw[m]));
+        }
+        Drain();
+        ProjectionResult p = Coordinator.LastProjection!;
+        switch (p.Status)
+        {
+            case ProjectionStatus.Projected: _dayProjections++; break;
+            case ProjectionStatus.Unverified: _dayProjections++; _dayUnverified++; break;
+            case ProjectionStatus.Infeasible: _dayInfeasible++; break;
+            case ProjectionStatus.SolverFailure: _dayFailures++; break;
+        }
+        for (int m = 0; m < n; m++)
+        {
+            _actions[m] = (float)_agents[m].Setpoint;
+        }
+        int slot = _task.Environment.Slot;
+        if (_truth is not null)
+        {
+            baseKw.CopyTo(_truthBase);
+            min.CopyTo(_truthMin);
+            des.CopyTo(_truthDes);
+        }
+        bool dayOver = _task.Step(_actions, _costs);
+        if (_truth is not null)
+        {
             for (int m = 0; m < n; m++)
             {
-                Deliver(_agents[m].BeginStep(step, state.AsSpan(m * features, features), min[m], des[m], baseKw[m]));
+                Household h = _scenario.Households[m];
+                _truth.Write(step, _task.Day + 1, h.Id, m, h.BusId, _truthBase[m], _truthMin[m], _truthDes[m], _scenario.Traces[m].Occupied[slot],
+                    _agents[m].Proposal, _task.LastStep.HouseholdKw[m] - _truthBase[m], _costs[m]);
             }
-            Drain();
-            ProjectionResult p = Coordinator.LastProjection!;
-            switch (p.Status)
-            {
-                case ProjectionStatus.Projected: dayProjections++; break;
-                case ProjectionStatus.Unverified: dayProjections++; dayUnverified++; break;
-                case ProjectionStatus.Infeasible: dayInfeasible++; break;
-                case ProjectionStatus.SolverFailure: dayFailures++; break;
-            }
+        }
+        bool roundEnd = (step + 1) % fed.StepsPerRound == 0;
+        if (roundEnd)
+        {
+            Parallel.For(0, n, m => _replies[m] = _agents[m].CompleteStep(_costs[m]));
+            bool lost = false;
             for (int m = 0; m < n; m++)
             {
-                actions[m] = (float)_agents[m].Setpoint;
-            }
-            int slot = _task.Environment.Slot;
-            if (truth is not null)
-            {
-                baseKw.CopyTo(truthBase);
-                min.CopyTo(truthMin);
-                des.CopyTo(truthDes);
-            }
-            bool dayOver = _task.Step(actions, costs);
-            if (truth is not null)
-            {
-                for (int m = 0; m < n; m++)
+                if (_replies[m] is { } r)
                 {
-                    Household h = _scenario.Households[m];
-                    truth.Write(step, _task.Day + 1, h.Id, m, h.BusId, truthBase[m], truthMin[m], truthDes[m], _scenario.Traces[m].Occupied[slot],
-                        _agents[m].Proposal, _task.LastStep.HouseholdKw[m] - truthBase[m], costs[m]);
-                }
-            }
-            bool roundEnd = (step + 1) % fed.StepsPerRound == 0;
-            if (roundEnd)
-            {
-                Parallel.For(0, n, m => replies[m] = _agents[m].CompleteStep(costs[m]));
-                bool lost = false;
-                for (int m = 0; m < n; m++)
-                {
-                    if (replies[m] is { } r)
+                    if (_options.UploadDropout > 0 && _dropout.NextDouble() < _options.UploadDropout)
                     {
-                        if (_options.UploadDropout > 0 && dropout.NextDouble() < _options.UploadDropout)
-                        {
-                            lost = true;
-                            continue;
-                        }
-                        Deliver(r);
-                        Drain();
+                        lost = true;
+                        continue;
                     }
-                }
-                if (lost && Coordinator.Phase == CoordinatorPhase.CollectingUploads)
-                {
-                    Coordinator.CloseRound(this);
+                    Deliver(r);
                     Drain();
                 }
             }
-            else
+            if (lost && Coordinator.Phase == CoordinatorPhase.CollectingUploads)
             {
-                for (int m = 0; m < n; m++)
-                {
-                    Deliver(_agents[m].CompleteStep(costs[m]));
-                }
+                Coordinator.CloseRound(this);
                 Drain();
             }
-            step++;
-            if (dayOver)
+        }
+        else
+        {
+            for (int m = 0; m < n; m++)
             {
-                DayMetrics d = _task.LastDay! with
-                {
-                    Projections = dayProjections,
-                    ProjectionTrouble = new ProjectionCounts(dayUnverified, dayInfeasible, dayFailures),
-                };
-                dayProjections = dayUnverified = dayInfeasible = dayFailures = 0;
-                days.Add(d);
-                progress?.Invoke(d);
-                if (_task.HorizonOver)
-                {
-                    break;
-                }
+                Deliver(_agents[m].CompleteStep(_costs[m]));
+            }
+            Drain();
+        }
+        _step = step + 1;
+        if (dayOver)
+        {
+            DayMetrics d = _task.LastDay! with
+            {
+                Projections = _dayProjections,
+                ProjectionTrouble = new ProjectionCounts(_dayUnverified, _dayInfeasible, _dayFailures),
+            };
+            _dayProjections = _dayUnverified = _dayInfeasible = _dayFailures = 0;
+            _days.Add(d);
+            progress?.Invoke(d);
+            if (!_task.HorizonOver)
+            {
                 _task.NextDay();
             }
         }
+        return true;
+    }
+
+    /// <summary>Runs every (remaining) day of the scenario, then ends the run (run-completed record, transcript closed).</summary>
+    /// <param name="progress">Called after each day, or null.</param>
+    /// <returns>The result.</returns>
+    public FederatedRunResult Run(Action<DayMetrics>? progress = null)
+    {
+        while (StepOnce(progress))
+        {
+        }
+        return Finish();
+    }
+
+    /// <summary>Ends the run: the coordinator records completion, files are closed.</summary>
+    /// <returns>The result.</returns>
+    public FederatedRunResult Finish()
+    {
+        Start();
         Coordinator.Finish();
         Writer?.Dispose();
+        _truth?.Dispose();
+        _watch.Stop();
+        int n = _agents.Length;
         long transcriptBytes = Writer?.BytesWritten ?? 0;
-        var run = new TrainingRun("actor-critic", days.ToImmutable(), step, Coordinator.AggregatedRounds, watch.Elapsed);
+        var run = new TrainingRun("actor-critic", [.. _days], _step, Coordinator.AggregatedRounds, _watch.Elapsed);
         return new FederatedRunResult(run, _scheme.Name, Coordinator.AggregatedRounds + Coordinator.FailedRounds, Coordinator.AggregatedRounds,
-            Coordinator.FailedRounds, transcriptBytes, Writer?.RecordCount ?? 0, _wireBytes, _wireBytes / (double)(n * Math.Max(1, step)));
+            Coordinator.FailedRounds, transcriptBytes, Writer?.RecordCount ?? 0, _wireBytes, _wireBytes / (double)(n * Math.Max(1, _step)));
     }
 
     private void Enqueue(HouseholdMessage? message)
