@@ -65,6 +65,24 @@ public sealed class MaskingKeyPair : IDisposable
     /// <exception cref="CryptographicException">d is not a valid scalar or does not belong to the public key.</exception>
     public static MaskingKeyPair FromPrivateScalar(ReadOnlySpan<byte> privateScalar, ReadOnlySpan<byte> expectedPublicKey)
     {
+        MaskingKeyPair pair = FromPrivateScalar(privateScalar);
+        if (!CryptographicOperations.FixedTimeEquals(pair.PublicKey, expectedPublicKey))
+        {
+            pair.Dispose();
+            throw new CryptographicException("the recovered private scalar does not belong to the published public key");
+        }
+        return pair;
+    }
+
+    /// <summary>
+    /// Builds a key pair from a private scalar (the public key is derived from it). Used to rebuild a dropped
+    /// household's key, and by simulations that draw keys from a seeded stream for reproducible transcripts.
+    /// </summary>
+    /// <param name="privateScalar">d, 32 bytes big-endian, 1 ≤ d &lt; the P-256 group order.</param>
+    /// <returns>The key pair.</returns>
+    /// <exception cref="CryptographicException">d is not a valid P-256 scalar.</exception>
+    public static MaskingKeyPair FromPrivateScalar(ReadOnlySpan<byte> privateScalar)
+    {
         if (privateScalar.Length != PrivateScalarBytes)
         {
             throw new CryptographicException($"P-256 private scalars are {PrivateScalarBytes} bytes; got {privateScalar.Length}");
@@ -73,12 +91,7 @@ public sealed class MaskingKeyPair : IDisposable
         try
         {
             key.ImportParameters(new ECParameters { Curve = ECCurve.NamedCurves.nistP256, D = privateScalar.ToArray() });
-            var pair = new MaskingKeyPair(key);
-            if (!CryptographicOperations.FixedTimeEquals(pair.PublicKey, expectedPublicKey))
-            {
-                throw new CryptographicException("the recovered private scalar does not belong to the published public key");
-            }
-            return pair;
+            return new MaskingKeyPair(key);
         }
         catch
         {
