@@ -70,6 +70,15 @@ public sealed class PrivacyAggregatorTests
     }
 
     [Fact]
+    public void RulesByName()
+    {
+        Assert.IsType<FedAvgAggregator>(UploadAggregators.Create("fedavg"));
+        Assert.IsType<CoordinateMedianAggregator>(UploadAggregators.Create("median"));
+        Assert.Equal(0.25, Assert.IsType<TrimmedMeanAggregator>(UploadAggregators.Create("trimmed-mean", 0.25)).TrimFraction);
+        Assert.Contains("known: fedavg, median, trimmed-mean", Assert.Throws<ArgumentException>(() => UploadAggregators.Create("mean")).Message);
+    }
+
+    [Fact]
     public void InputsAreChecked()
     {
         var median = new CoordinateMedianAggregator();

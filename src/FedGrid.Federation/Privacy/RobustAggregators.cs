@@ -140,3 +140,26 @@ internal static class RobustColumns
         }
     }
 }
+
+/// <summary>The averaging rules by name, for options such as <c>--averaging fedavg|median|trimmed-mean</c>.</summary>
+public static class UploadAggregators
+{
+    /// <summary>Default β of the trimmed mean: 10 % from each end.</summary>
+    public const double DefaultTrimFraction = 0.1;
+
+    /// <summary>Known rule names.</summary>
+    public static IReadOnlyList<string> Names { get; } = ["fedavg", CoordinateMedianAggregator.RuleName, TrimmedMeanAggregator.RuleName];
+
+    /// <summary>Creates a rule by name.</summary>
+    /// <param name="name">"fedavg", "median" or "trimmed-mean".</param>
+    /// <param name="trimFraction">β of the trimmed mean.</param>
+    /// <returns>A new rule instance (each owns its buffers).</returns>
+    /// <exception cref="ArgumentException">Unknown name (the message lists the known ones).</exception>
+    public static IUploadAggregator Create(string name, double trimFraction = DefaultTrimFraction) => name switch
+    {
+        "fedavg" => new FedAvgAggregator(),
+        CoordinateMedianAggregator.RuleName => new CoordinateMedianAggregator(),
+        TrimmedMeanAggregator.RuleName => new TrimmedMeanAggregator(trimFraction),
+        _ => throw new ArgumentException($"unknown averaging rule '{name}'; known: {string.Join(", ", Names)}", nameof(name)),
+    };
+}
