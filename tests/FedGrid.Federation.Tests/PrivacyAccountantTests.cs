@@ -34,7 +34,7 @@ public sealed class PrivacyAccountantTests
     public void AgreesWithScipyNumericalIntegration(double q, double sigma)
     {
         // Independent reference: tests/reference/rdp_reference.py integrates E_{N(0,σ²)}[(μ/μ₀)^α] with
-        // scipy.integrate.quad (no series). Integer and fractional orders; agreement 1e-6 relative.
+        // scipy.integrate.quad (no series). Integer and fractional orders; agreement 1e-8 relative (measured ≤ 1.5e-10).
         double[] orders = [1.25, 1.5, 1.75, 2, 2.5, 3, 4.5, 8, 12.75, 32];
         using JsonDocument reference = PrivacyReference.Run("rdp", q.ToString("R", System.Globalization.CultureInfo.InvariantCulture),
             sigma.ToString("R", System.Globalization.CultureInfo.InvariantCulture), PrivacyReference.List(orders));
@@ -44,7 +44,7 @@ public sealed class PrivacyAccountantTests
             double alpha = row.GetProperty("order").GetDouble(), expected = row.GetProperty("rdp").GetDouble();
             Assert.Equal(orders[i++], alpha);
             double ours = RenyiDpAccountant.SampledGaussianRdp(q, sigma, alpha);
-            Assert.True(Math.Abs(ours - expected) <= 1e-6 * expected, $"q={q} σ={sigma} α={alpha}: ours {ours:R}, SciPy {expected:R}");
+            Assert.True(Math.Abs(ours - expected) <= 1e-8 * expected, $"q={q} σ={sigma} α={alpha}: ours {ours:R}, SciPy {expected:R}");
         }
         Assert.Equal(orders.Length, i);
     }
