@@ -1,0 +1,97 @@
+namespace FedGrid.Audit.Attacks;
+
+/// <summary>
+/// Uploads: analytic recovery of first-layer inputs from weight and bias updates (Phong et al. 2018). For a dense
+/// first layer with bias trained by gradient steps, row o of the update is ΔW_o = Σ_s g_{o,s} x_s and Δb_o = Σ_s g_{o,s},
+/// so with one local sample x = ΔW_o / Δb_o exactly, for every row with Δb_o ≠ 0. With several samples each row's ratio
+/// is a mixture of them; the least-squares fit over all rows (and all uploaded networks),
+/// x̂ = Σ_o Δb_o ΔW_o / Σ_o Δb_o², is the attack's estimate for every slot of the round, and the rows' spread
+/// around it is its error estimate.
+/// </summary>
+public static class UploadRatioAttack
+{
+    /// <summary>Attack name in results.</summary>
+    public const string Name = "weightBiasRatio";
+
+    /// <summary>Runs the attack on every household with first-layer uploads.</summary>
+    /// <param name="view">The attacker's view.</param>
+    /// <param name="options">Side information in use.</param>
+    /// <param name="reconstructions">Receives the reconstructions.</param>
+    /// <param name="identifiability">Receives one entry per attacked household.</param>
+    /// <param name="notes">Receives what could not be done.</param>
+    public static void Run(AttackerView view, AttackOptions options, List<Reconstruction> reconstructions, List<Identifiability> identifiability, List<string> notes)
+    {
+        ArgumentNullException.ThrowIfNull(view);
+        ArgumentNullException.ThrowIfNull(options);
+        int n = view.FeatureCount, T = view.SlotCount;
+        int attacked = 0;
+        for (int m = 0; m < view.Households.Count; m++)
+        {
+            HouseholdView h = view.Households[m];
+            if (!h.Rounds.Any(r => r.Updates.Count > 0)) continue;
+            attacked++;
+            var est = new Dictionary<Quantity, (double[] E, double[] V)>();
+            foreach (Quantity q in AuditNames.Quantities)
+                if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
+            var x = new double[n];
+            var spread = new double[n];
+            int usedRounds = 0, minRows = int.MaxValue;
+            foreach (RoundObservation round in h.Rounds)
+            {
+                Array.Clear(x);
+                Array.Clear(spread);
+                double bb = 0, scale = 0;
+                int rows = 0;
+                foreach (FirstLayerUpdate u in round.Updates)
+                    for (int o = 0; o < u.Neurons; o++)
+                    {
+                        double db = u.BiasDelta[o];
+                        scale = Math.Max(scale, Math.Abs(db));
+                    }
+                foreach (FirstLayerUpdate u in round.Updates)
+                    for (int o = 0; o < u.Neurons; o++)
+                    {
+                        double db = u.BiasDelta[o];
+                        if (!(Math.Abs(db) > 1e-7 * scale)) continue;
+                        rows++;
+                        bb += db * db;
+                        for (int j = 0; j < n; j++) x[j] += db * u.WeightDelta[o * n + j];
+                    }
+                if (!(bb > 0)) continue;
+                usedRounds++;
+                minRows = Math.Min(minRows, rows);
+                for (int j = 0; j < n; j++) x[j] /= bb;
+                foreach (FirstLayerUpdate u in round.Updates)
+                    for (int o = 0; o < u.Neurons; o++)
+                    {
+                        double db = u.BiasDelta[o];
+                        if (!(Math.Abs(db) > 1e-7 * scale)) continue;
+                        for (int j = 0; j < n; j++)
+                        {
+                            double r = u.WeightDelta[o * n + j] - db * x[j];
+                            spread[j] += r * r;
+                        }
+                    }
+                for (int j = 0; j < n; j++)
+                {
+                    InputFeature f = view.Features[j];
+                    if (f.Quantity is not { } q || !est.TryGetValue(q, out var e)) continue;
+                    double kw = f.OffsetKw + f.KwPerUnit * x[j];
+                    // Spread of the row ratios around the fit (weighted by Δb²), in kW², plus float32 rounding of the ratio.
+                    double v = spread[j] / bb * f.KwPerUnit * f.KwPerUnit / Math.Max(1, rows - 1) + Math.Pow(1e-6 * kw, 2);
+                    for (int t = round.StartSlot; t < Math.Min(T, round.StartSlot + round.SlotCount); t++)
+                    {
+                        e.E[t] = kw;
+                        e.V[t] = Math.Max(v, AttackPrior.TinyVariance);
+                    }
+                }
+            }
+            foreach (var (q, e) in est) reconstructions.Add(new Reconstruction(Channel.Uploads, Name, q, m, e.E, e.V));
+            identifiability.Add(new Identifiability(m, Channel.Uploads, Name, usedRounds > 0 ? 1 : 0, n, double.NaN, double.NaN,
+                usedRounds == 0 ? "no round had a non-zero first-layer bias update" :
+                $"{usedRounds} round(s) with first-layer updates, at least {minRows} informative row(s) each; exact for one local sample, a weighted mean of the round's samples otherwise"));
+        }
+        if (attacked == 0)
+            notes.Add("uploads: no household uploaded its first-layer block (e.g. private columns), so the weight/bias ratio attack had nothing to work on");
+    }
+}
