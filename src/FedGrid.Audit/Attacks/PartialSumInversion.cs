@@ -5,7 +5,10 @@ namespace FedGrid.Audit.Attacks;
 /// <summary>
 /// Partial sums under the plain scheme: the coordinator broadcast W_m, so each a_m(t) = W_m x_m(t) is inverted
 /// by least squares (exact when W_m has full column rank, i.e. with at least as many first-layer neurons as
-/// features). Rank-deficient directions keep the prior: x = x₀ + W⁺(a − W x₀).
+/// features). Written as the linear-Gaussian posterior mean: the observation noise σ is estimated from the
+/// least-squares residual of each round (floored at float32 rounding), the prior x₀ holds the public features at
+/// their known values and the private ones at the attacker's prior, so unidentified directions and noisy
+/// observations fall back to the prior, and exact observations give the least-squares answer.
 /// </summary>
 public static class PartialSumInversion
 {
@@ -37,10 +40,13 @@ public static class PartialSumInversion
             foreach (Quantity q in AuditNames.Quantities)
                 if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
             var x0 = new double[n];
+            var tau2 = new double[n];
             var x = new double[n];
-            var resid = new double[hN];
+            var nMat = new double[n * n];
+            var rhs = new double[n];
+            var e0 = new double[n];
             int minRank = n;
-            double maxCond = 0, maxBound = 0;
+            double maxCond = 0, maxBound = 0, maxNoiseRatio = 0;
             foreach (RoundObservation round in h.Rounds)
             {
                 double[] w = round.BroadcastWeights!;
@@ -52,47 +58,81 @@ public static class PartialSumInversion
                 var invGramDiag = new double[n];
                 for (int j = 0; j < n; j++)
                     for (int k = 0; k < rank; k++) invGramDiag[j] += svd.V[j * svd.K + k] * svd.V[j * svd.K + k] / (svd.S[k] * svd.S[k]);
-                for (int t = round.StartSlot; t < Math.Min(T, round.StartSlot + round.SlotCount); t++)
+                int t0 = round.StartSlot, t1 = Math.Min(T, round.StartSlot + round.SlotCount);
+                // Observation noise of the round: least-squares residual (pooled, H₁ − rank degrees of freedom per slot),
+                // floored at float32 rounding of the partial sums.
+                double ssr = 0, ssa = 0;
+                int dof = 0;
+                for (int t = t0; t < t1; t++)
                 {
                     ReadOnlySpan<double> a = h.PartialSums.AsSpan(t * hN, hN);
                     if (!double.IsFinite(a[0])) continue;
-                    for (int j = 0; j < n; j++)
-                    {
-                        InputFeature f = view.Features[j];
-                        x0[j] = f.Quantity is { } q && est.TryGetValue(q, out var e) ? (e.E[t] - f.OffsetKw) / f.KwPerUnit
-                              : view.PublicFeatureValues is { } pv ? pv[t * n + j] : 0;
-                    }
-                    double aRms = 0;
+                    DenseLinearAlgebra.SolveLeastSquares(svd, a, x, 1e-10);
                     for (int o = 0; o < hN; o++)
                     {
                         double s = 0;
-                        for (int j = 0; j < n; j++) s += w[o * n + j] * x0[j];
-                        resid[o] = a[o] - s;
-                        aRms += a[o] * a[o];
+                        for (int j = 0; j < n; j++) s += w[o * n + j] * x[j];
+                        ssr += (a[o] - s) * (a[o] - s);
+                        ssa += a[o] * a[o];
                     }
-                    aRms = Math.Sqrt(aRms / hN);
-                    DenseLinearAlgebra.SolveLeastSquares(svd, resid, x, 1e-10);
-                    double sigma = Float32UnitRoundoff * Math.Max(aRms, 1e-30);
+                    dof += hN - rank;
+                }
+                double floor2 = Float32UnitRoundoff * Float32UnitRoundoff * ssa / Math.Max(1, (t1 - t0) * hN);
+                double sigma2 = Math.Max(dof > 0 ? ssr / dof : 0, floor2);
+                maxNoiseRatio = Math.Max(maxNoiseRatio, Math.Sqrt(sigma2 / Math.Max(floor2, 1e-300)));
+                for (int t = t0; t < t1; t++)
+                {
+                    ReadOnlySpan<double> a = h.PartialSums.AsSpan(t * hN, hN);
+                    if (!double.IsFinite(a[0])) continue;
+                    // Gaussian prior on x: the attacker's prior for private features, the known value for public ones.
+                    for (int j = 0; j < n; j++)
+                    {
+                        InputFeature f = view.Features[j];
+                        if (f.Quantity is { } q && est.TryGetValue(q, out var e))
+                        {
+                            x0[j] = (e.E[t] - f.OffsetKw) / f.KwPerUnit;
+                            double sd = AttackPrior.Std(view, options, m, q) / Math.Abs(f.KwPerUnit);
+                            tau2[j] = sd * sd;
+                        }
+                        else if (view.PublicFeatureValues is { } pv) { x0[j] = pv[t * n + j]; tau2[j] = 1e-12 * (1 + x0[j] * x0[j]); }
+                        else { x0[j] = 0; tau2[j] = 1e12; }
+                    }
+                    // MAP: (WᵀW/σ² + diag(1/τ²)) x = Wᵀa/σ² + x₀/τ² (least squares when σ is float32 rounding).
+                    for (int i = 0; i < n; i++)
+                    {
+                        double r = x0[i] / tau2[i];
+                        for (int o = 0; o < hN; o++) r += w[o * n + i] * a[o] / sigma2;
+                        rhs[i] = r;
+                        for (int j = 0; j <= i; j++)
+                        {
+                            double g = 0;
+                            for (int o = 0; o < hN; o++) g += w[o * n + i] * w[o * n + j];
+                            nMat[i * n + j] = nMat[j * n + i] = g / sigma2 + (i == j ? 1 / tau2[i] : 0);
+                        }
+                    }
+                    if (!DenseLinearAlgebra.CholeskyDecompose(nMat, n)) continue;
+                    rhs.AsSpan().CopyTo(x);
+                    DenseLinearAlgebra.CholeskySolve(nMat, n, x);
                     for (int j = 0; j < n; j++)
                     {
                         InputFeature f = view.Features[j];
                         if (f.Quantity is not { } q || !est.TryGetValue(q, out var e)) continue;
-                        e.E[t] = f.OffsetKw + f.KwPerUnit * (x0[j] + x[j]);
-                        if (rank == n)
-                        {
-                            double v = sigma * sigma * invGramDiag[j] * f.KwPerUnit * f.KwPerUnit;
-                            e.V[t] = Math.Max(v, AttackPrior.TinyVariance);
-                            if (j == baseIdx) maxBound = Math.Max(maxBound, Math.Sqrt(v));
-                        }
+                        Array.Clear(e0);
+                        e0[j] = 1;
+                        DenseLinearAlgebra.CholeskySolve(nMat, n, e0);
+                        e.E[t] = f.OffsetKw + f.KwPerUnit * x[j];
+                        e.V[t] = Math.Max(e0[j] * f.KwPerUnit * f.KwPerUnit, AttackPrior.TinyVariance);
+                        if (j == baseIdx && rank == n) maxBound = Math.Max(maxBound, Math.Sqrt(sigma2 * invGramDiag[j]) * Math.Abs(f.KwPerUnit));
                     }
                 }
             }
             foreach (var (q, e) in est) reconstructions.Add(new Reconstruction(Channel.PartialSums, Name, q, m, e.E, e.V));
             identifiability.Add(new Identifiability(m, Channel.PartialSums, Name, minRank, n, maxCond,
                 minRank == n ? maxBound : double.NaN,
-                minRank == n
-                    ? $"broadcast W_m has full column rank {n} in every round: a_m = W_m x_m is solved exactly up to float32 rounding (bound from σ = 2⁻²⁴·rms(a))"
-                    : $"W_m has rank {minRank} < {n} features in some round: {n - minRank} direction(s) of x_m stay at the prior"));
+                (minRank == n
+                    ? $"broadcast W_m has full column rank {n} in every round: a_m = W_m x_m is solved by least squares; bound σ²(WᵀW)⁻¹ with σ the larger of the residual and float32 rounding (2⁻²⁴·rms a)"
+                    : $"W_m has rank {minRank} < {n} features in some round: {n - minRank} direction(s) of x_m stay at the prior")
+                + (maxNoiseRatio > 10 ? $"; observations are noisier than float32 rounding by up to ×{maxNoiseRatio:G3} (noise or inconsistency), so the estimate leans on the prior" : "")));
         }
     }
 }

@@ -26,6 +26,9 @@ public static class SubspaceAttack
     /// <summary>Singular values below this fraction of the largest count as float32 noise.</summary>
     public const double RankTolerance = 1e-5;
 
+    /// <summary>A round is rejected when singular value n+1 exceeds this fraction of singular value n (no spectral gap).</summary>
+    public const double GapRatio = 0.1;
+
     private sealed record Basis(int Start, int[] Slots, double[] B, int R);
 
     /// <summary>Runs both calibrations on every household whose broadcast weights are unknown.</summary>
@@ -47,7 +50,7 @@ public static class SubspaceAttack
             if (h.PartialSums is null || h.Rounds.Count == 0 || h.Rounds.All(r => r.BroadcastWeights is not null)) continue;
             targets.Add(m);
             var list = new List<Basis>();
-            int minRank = n;
+            int minRank = n, rejected = 0;
             foreach (RoundObservation round in h.Rounds)
             {
                 var slots = new List<int>();
@@ -58,6 +61,10 @@ public static class SubspaceAttack
                 for (int i = 0; i < slots.Count; i++) h.PartialSums.AsSpan(slots[i] * hN, hN).CopyTo(a.AsSpan(i * hN));
                 SvdResult svd = DenseLinearAlgebra.Svd(a, slots.Count, hN);
                 int r = Math.Min(n, svd.Rank(RankTolerance));
+                // Spectral-gap test: observations of the form X Wᵀ have at most n significant singular values; when the
+                // first one past the kept ones is not far below the last kept, the round does not fit the model (noise,
+                // masking) and the attacker keeps its prior there.
+                if (r == 0 || (svd.K > r && svd.S[r] > GapRatio * svd.S[r - 1])) { rejected++; continue; }
                 minRank = Math.Min(minRank, r);
                 var b = new double[slots.Count * r];
                 for (int i = 0; i < slots.Count; i++)
@@ -74,8 +81,10 @@ public static class SubspaceAttack
                 foreach (Basis basis in list) Project(basis, prior, sp, est, var);
                 reconstructions.Add(new Reconstruction(Channel.PartialSums, PriorProjectionName, q, m, est, var));
             }
+            if (list.Count == 0) minRank = 0;
             identifiability.Add(new Identifiability(m, Channel.PartialSums, PriorProjectionName, minRank, n, double.NaN, double.NaN,
-                $"W_m unknown: each round's partial sums span a {minRank}-dimensional subspace holding x_m, known only up to an unknown {minRank}×{minRank} map; the quantities are picked out by calibration (priors, substation meter)"));
+                $"W_m unknown: each round's partial sums span a {minRank}-dimensional subspace holding x_m, known only up to an unknown {minRank}×{minRank} map; the quantities are picked out by calibration (priors, substation meter)"
+                + (rejected > 0 ? $"; {rejected} of {h.Rounds.Count} round(s) had no spectral gap after {n} singular values (noise or masking) and keep the prior" : "")));
         }
         if (targets.Count == 0) return;
         if (!options.UseSubstationMeter || view.SubstationMeterKw is null)

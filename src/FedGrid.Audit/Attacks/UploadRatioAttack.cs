@@ -79,10 +79,15 @@ public static class UploadRatioAttack
                     double kw = f.OffsetKw + f.KwPerUnit * x[j];
                     // Spread of the row ratios around the fit (weighted by Δb²), in kW², plus float32 rounding of the ratio.
                     double v = spread[j] / bb * f.KwPerUnit * f.KwPerUnit / Math.Max(1, rows - 1) + Math.Pow(1e-6 * kw, 2);
+                    v = Math.Max(v, AttackPrior.TinyVariance);
+                    // Posterior mean with the attacker's prior: an inconsistent upload (large spread) leans on the prior.
+                    double sp = AttackPrior.Std(view, options, m, q);
+                    double[] prior = AttackPrior.Mean(view, options, m, q);
                     for (int t = round.StartSlot; t < Math.Min(T, round.StartSlot + round.SlotCount); t++)
                     {
-                        e.E[t] = kw;
-                        e.V[t] = Math.Max(v, AttackPrior.TinyVariance);
+                        double wp = 1 / (sp * sp), wa = 1 / v;
+                        e.E[t] = (wa * kw + wp * prior[t]) / (wa + wp);
+                        e.V[t] = 1 / (wa + wp);
                     }
                 }
             }
