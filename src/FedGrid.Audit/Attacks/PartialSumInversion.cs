@@ -21,6 +21,9 @@ public static class PartialSumInversion
     /// </summary>
     public const double Float32UnitRoundoff = 5.9604644775390625e-8;
 
+    /// <summary>A round whose fitted energy per direction is below this multiple of the residual energy per degree of freedom is rejected.</summary>
+    public const double ModelCheckRatio = 10;
+
     /// <summary>Runs the attack on every household with broadcast weights; households without them are skipped.</summary>
     /// <param name="view">The attacker's view.</param>
     /// <param name="options">Side information in use.</param>
@@ -47,6 +50,7 @@ public static class PartialSumInversion
             var e0 = new double[n];
             int minRank = n;
             double maxCond = 0, maxBound = 0, maxNoiseRatio = 0;
+            int rejected = 0;
             foreach (RoundObservation round in h.Rounds)
             {
                 double[] w = round.BroadcastWeights!;
@@ -61,8 +65,8 @@ public static class PartialSumInversion
                 int t0 = round.StartSlot, t1 = Math.Min(T, round.StartSlot + round.SlotCount);
                 // Observation noise of the round: least-squares residual (pooled, H₁ − rank degrees of freedom per slot),
                 // floored at float32 rounding of the partial sums.
-                double ssr = 0, ssa = 0;
-                int dof = 0;
+                double ssr = 0, ssa = 0, ssFit = 0;
+                int dof = 0, fitted = 0;
                 for (int t = t0; t < t1; t++)
                 {
                     ReadOnlySpan<double> a = h.PartialSums.AsSpan(t * hN, hN);
@@ -74,9 +78,14 @@ public static class PartialSumInversion
                         for (int j = 0; j < n; j++) s += w[o * n + j] * x[j];
                         ssr += (a[o] - s) * (a[o] - s);
                         ssa += a[o] * a[o];
+                        ssFit += s * s;
                     }
                     dof += hN - rank;
+                    fitted += rank;
                 }
+                // Model check (an F ratio): energy per fitted direction against residual energy per degree of freedom. Observations
+                // that do not come from W_m x_m (noise, masks) give a ratio near 1; the attacker then keeps its prior for the round.
+                if (dof > 0 && fitted > 0 && ssFit / fitted < ModelCheckRatio * (ssr / dof)) { rejected++; continue; }
                 double floor2 = Float32UnitRoundoff * Float32UnitRoundoff * ssa / Math.Max(1, (t1 - t0) * hN);
                 double sigma2 = Math.Max(dof > 0 ? ssr / dof : 0, floor2);
                 maxNoiseRatio = Math.Max(maxNoiseRatio, Math.Sqrt(sigma2 / Math.Max(floor2, 1e-300)));
@@ -132,6 +141,7 @@ public static class PartialSumInversion
                 (minRank == n
                     ? $"broadcast W_m has full column rank {n} in every round: a_m = W_m x_m is solved by least squares; bound σ²(WᵀW)⁻¹ with σ the larger of the residual and float32 rounding (2⁻²⁴·rms a)"
                     : $"W_m has rank {minRank} < {n} features in some round: {n - minRank} direction(s) of x_m stay at the prior")
+                + (rejected > 0 ? $"; {rejected} of {h.Rounds.Count} round(s) do not fit a_m = W_m x_m (residual as large as the fit: noise or masking) and keep the prior" : "")
                 + (maxNoiseRatio > 10 ? $"; observations are noisier than float32 rounding by up to ×{maxNoiseRatio:G3} (noise or inconsistency), so the estimate leans on the prior" : "")));
         }
     }

@@ -13,6 +13,9 @@ public static class UploadRatioAttack
     /// <summary>Attack name in results.</summary>
     public const string Name = "weightBiasRatio";
 
+    /// <summary>A round whose fit energy per feature is below this multiple of the spread per degree of freedom is rejected.</summary>
+    public const double ModelCheckRatio = 10;
+
     /// <summary>Runs the attack on every household with first-layer uploads.</summary>
     /// <param name="view">The attacker's view.</param>
     /// <param name="options">Side information in use.</param>
@@ -35,7 +38,7 @@ public static class UploadRatioAttack
                 if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
             var x = new double[n];
             var spread = new double[n];
-            int usedRounds = 0, minRows = int.MaxValue;
+            int usedRounds = 0, minRows = int.MaxValue, rejected = 0;
             foreach (RoundObservation round in h.Rounds)
             {
                 Array.Clear(x);
@@ -72,6 +75,12 @@ public static class UploadRatioAttack
                             spread[j] += r * r;
                         }
                     }
+                // Model check (an F ratio): energy of the fit per feature against the rows' spread per degree of freedom. Updates that are
+                // not of the form Δb_o·x (noise) give a ratio near 1; the attacker then keeps its prior for the round.
+                double fitEnergy = 0, residual = 0;
+                for (int j = 0; j < n; j++) { fitEnergy += x[j] * x[j] * bb; residual += spread[j]; }
+                int dof = (rows - 1) * n;
+                if (dof > 0 && fitEnergy / n < ModelCheckRatio * residual / dof) { usedRounds--; rejected++; continue; }
                 for (int j = 0; j < n; j++)
                 {
                     InputFeature f = view.Features[j];
@@ -93,8 +102,9 @@ public static class UploadRatioAttack
             }
             foreach (var (q, e) in est) reconstructions.Add(new Reconstruction(Channel.Uploads, Name, q, m, e.E, e.V));
             identifiability.Add(new Identifiability(m, Channel.Uploads, Name, usedRounds > 0 ? 1 : 0, n, double.NaN, double.NaN,
-                usedRounds == 0 ? "no round had a non-zero first-layer bias update" :
-                $"{usedRounds} round(s) with first-layer updates, at least {minRows} informative row(s) each; exact for one local sample, a weighted mean of the round's samples otherwise"));
+                usedRounds == 0 ? "no round had a usable first-layer update (zero bias change, or updates that look like noise)" + (rejected > 0 ? $"; {rejected} round(s) rejected as noise" : "") :
+                $"{usedRounds} round(s) with first-layer updates, at least {minRows} informative row(s) each; exact for one local sample, a weighted mean of the round's samples otherwise"
+                + (rejected > 0 ? $"; {rejected} round(s) whose updates are not of the form Δb·x (noise) keep the prior" : "")));
         }
         if (attacked == 0)
             notes.Add("uploads: no household uploaded its first-layer block (e.g. private columns), so the weight/bias ratio attack had nothing to work on");
