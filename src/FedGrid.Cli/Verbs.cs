@@ -9,5 +9,7 @@ internal static class Verbs
     {
         yield return Commands.FlowCommand.Create();
         yield return Commands.DemoCommand.Create();
+        yield return Commands.TrainCommand.Create();
+        yield return Commands.ProjectCommand.Create();
     }
 }

@@ -6,5 +6,6 @@ internal static class VersusCases
     public static IEnumerable<IVersusCase> All()
     {
         foreach (IVersusCase c in PowerFlowVersusCase.All()) yield return c;
+        foreach (IVersusCase c in ProjectionVersusCase.All()) yield return c;
     }
 }

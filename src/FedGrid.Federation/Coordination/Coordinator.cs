@@ -1,0 +1,596 @@
+using FedGrid.Federation.Protocol;
+using FedGrid.Federation.Schemes;
+using FedGrid.Federation.Transcripts;
+using FedGrid.Federation.Wire;
+using FedGrid.Grid.Feeders;
+using FedGrid.Grid.Projection;
+using FedGrid.Learning.Networks;
+using FedGrid.Learning.Randomness;
+
+namespace FedGrid.Federation.Coordination;
+
+/// <summary>Where the coordinator's protocol machine stands.</summary>
+public enum CoordinatorPhase
+{
+    /// <summary>Waiting for every household of the roster to join.</summary>
+    Admitting,
+    /// <summary>Collecting the current step's partial sums.</summary>
+    CollectingPartialSums,
+    /// <summary>Collecting the current step's projection inputs.</summary>
+    CollectingProjectionInputs,
+    /// <summary>Collecting the round's uploads from the selected households.</summary>
+    CollectingUploads,
+    /// <summary>The run was ended with <see cref="Coordinator.Finish"/>.</summary>
+    Finished,
+}
+
+/// <summary>Where the coordinator's messages go: a transport (gRPC host) or the in-process runner.</summary>
+public interface ICoordinatorOutbox
+{
+    /// <summary>Delivers one message (recipient in <see cref="CoordinatorMessage.HouseholdIndex"/>, −1 for all). The message object may be reused after the call returns: serialise or copy it before.</summary>
+    /// <param name="message">The message.</param>
+    void Send(CoordinatorMessage message);
+}
+
+/// <summary>What the coordinator knows before the run: the feeder, the roster, fixed loads and the run's settings.</summary>
+/// <param name="Feeder">The feeder (public).</param>
+/// <param name="Roster">Household ids in block order (the operator's roster); index m = position.</param>
+/// <param name="FeatureCount">Features per household state block.</param>
+/// <param name="FixedLoads">Loads known at buses besides the households.</param>
+/// <param name="Options">Run settings.</param>
+/// <param name="Scheme">The scheme.</param>
+/// <param name="ProjectionForm">The projection-input form.</param>
+/// <param name="Projection">Projection settings (defaults when null).</param>
+public sealed record CoordinatorSetup(Feeder Feeder, IReadOnlyList<string> Roster, int FeatureCount,
+    IReadOnlyList<(string BusId, double Kw, double Kvar)> FixedLoads, FederationOptions Options, IFederationScheme Scheme,
+    IProjectionInputsForm ProjectionForm, ProjectionOptions? Projection = null);
+
+/// <summary>
+/// The coordinator side of the protocol as an explicit state machine (<see cref="Phase"/>): admission, then per decision
+/// step partial sums → sums replies → projection inputs → projection → final setpoints, and at each round's end training
+/// calls to a seeded selection → uploads → aggregation (quorum checked) → broadcast. Every message received and sent,
+/// and every decision (selection, aggregation, failed quorum, dropouts), goes to the transcript in order. A message that
+/// does not fit throws <see cref="ProtocolException"/> after being recorded, and leaves the state unchanged.
+/// </summary>
+public sealed class Coordinator
+{
+    private readonly CoordinatorSetup _setup;
+    private readonly ITranscriptSink _transcript;
+    private readonly int _m;
+    private readonly DenseNetwork _actor, _critic;
+    private readonly ICoordinatorSchemeSide _scheme;
+    private readonly RegisteredHousehold?[] _registered;
+    private readonly bool[] _stepSeen, _projectionSeen, _selected;
+    private readonly ParameterUpload?[] _uploads;
+    private readonly Dictionary<string, int> _rosterIndex;
+    private readonly CoordinatorMessage _message = new();
+    private readonly SumsReply[] _sums;
+    private readonly float[] _actorShared, _criticShared;
+    private readonly int _stepsPerRound;
+    private ICoordinatorProjectionSide? _projection;
+    private int _joined, _stepCount, _projectionCount, _selectedCount, _uploadCount, _round;
+    private long _step = -1;
+
+    /// <summary>Creates the coordinator with its seeded initial model.</summary>
+    /// <param name="setup">What it knows.</param>
+    /// <param name="transcript">Where it records (e.g. a <see cref="TranscriptWriter"/>).</param>
+    public Coordinator(CoordinatorSetup setup, ITranscriptSink transcript)
+    {
+        ArgumentNullException.ThrowIfNull(setup);
+        ArgumentNullException.ThrowIfNull(transcript);
+        _setup = setup;
+        _transcript = transcript;
+        _m = setup.Roster.Count;
+        setup.Options.Validate(_m);
+        _stepsPerRound = setup.Options.StepsPerRound;
+        var learning = setup.Options.Learning;
+        (ActorShape, CriticShape) = Shapes(_m, setup.FeatureCount, learning);
+        _actor = new DenseNetwork(ActorShape);
+        _critic = new DenseNetwork(CriticShape);
+        _actor.Initialise(LearningRandom.DeriveSeed(learning.Seed, 1), learning.InitialOutputScale);
+        _critic.Initialise(LearningRandom.DeriveSeed(learning.Seed, 2), learning.InitialOutputScale);
+        if (!setup.Scheme.ColumnsCrossWire)
+        {
+            // The coordinator never learns the households' columns: it holds none.
+            for (int m = 0; m < _m; m++)
+            {
+                var (o, n) = _actor.FirstLayerBlockRange(m);
+                _actor.Parameters.Slice(o, n).Clear();
+                (o, n) = _critic.FirstLayerBlockRange(m);
+                _critic.Parameters.Slice(o, n).Clear();
+            }
+        }
+        _scheme = setup.Scheme.CreateCoordinatorSide(_m, ActorShape.FirstLayerSize, CriticShape.FirstLayerSize);
+        _registered = new RegisteredHousehold?[_m];
+        _stepSeen = new bool[_m];
+        _projectionSeen = new bool[_m];
+        _selected = new bool[_m];
+        _uploads = new ParameterUpload?[_m];
+        _rosterIndex = new Dictionary<string, int>(StringComparer.Ordinal);
+        for (int i = 0; i < _m; i++)
+        {
+            if (!_rosterIndex.TryAdd(setup.Roster[i], i))
+            {
+                throw new ArgumentException($"household '{setup.Roster[i]}' appears twice in the roster", nameof(setup));
+            }
+        }
+        _sums = new SumsReply[_m];
+        for (int i = 0; i < _m; i++)
+        {
+            _sums[i] = new SumsReply();
+        }
+        _actorShared = new float[_actor.SharedRange().Length];
+        _criticShared = new float[_critic.SharedRange().Length];
+    }
+
+    /// <summary>The actor and critic shapes of a run: every household's block of <paramref name="features"/>, the hidden sizes of <paramref name="learning"/>, one (mean, log-std) head per household for the actor and one value per household for the critic.</summary>
+    /// <param name="households">M.</param>
+    /// <param name="features">Features per block.</param>
+    /// <param name="learning">Learning settings.</param>
+    /// <returns>The shapes.</returns>
+    public static (NetworkShape Actor, NetworkShape Critic) Shapes(int households, int features, Learning.ActorCritic.ActorCriticOptions learning)
+    {
+        ArgumentNullException.ThrowIfNull(learning);
+        return (NetworkShape.Uniform(households, features, learning.HiddenSizes, 2 * households, learning.HiddenActivation),
+            NetworkShape.Uniform(households, features, learning.HiddenSizes, households, learning.HiddenActivation));
+    }
+
+    /// <summary>The machine's phase.</summary>
+    public CoordinatorPhase Phase { get; private set; } = CoordinatorPhase.Admitting;
+
+    /// <summary>The current round.</summary>
+    public int Round => _round;
+
+    /// <summary>The current (or last) decision step.</summary>
+    public long Step => _step;
+
+    /// <summary>Shape of the actor.</summary>
+    public NetworkShape ActorShape { get; }
+
+    /// <summary>Shape of the critic.</summary>
+    public NetworkShape CriticShape { get; }
+
+    /// <summary>The coordinator's copy of the actor: shared parameters always; first-layer columns only when the scheme sends them (zero otherwise).</summary>
+    public DenseNetwork Actor => _actor;
+
+    /// <summary>The coordinator's copy of the critic (same rule).</summary>
+    public DenseNetwork Critic => _critic;
+
+    /// <summary>Rounds aggregated so far.</summary>
+    public int AggregatedRounds { get; private set; }
+
+    /// <summary>Rounds whose quorum failed.</summary>
+    public int FailedRounds { get; private set; }
+
+    /// <summary>The last projection's result (null before the first).</summary>
+    public ProjectionResult? LastProjection { get; private set; }
+
+    /// <summary>Projections by outcome so far, indexed by <see cref="ProjectionStatus"/>.</summary>
+    public int[] ProjectionOutcomes { get; } = new int[5];
+
+    /// <summary>Handles one household message; replies go to <paramref name="outbox"/>.</summary>
+    /// <param name="message">The message (read during the call, not kept).</param>
+    /// <param name="outbox">Where replies go.</param>
+    public void Receive(HouseholdMessage message, ICoordinatorOutbox outbox)
+    {
+        ArgumentNullException.ThrowIfNull(message);
+        ArgumentNullException.ThrowIfNull(outbox);
+        long step = message.BodyCase switch
+        {
+            HouseholdMessage.BodyOneofCase.PartialSums => message.PartialSums.Step,
+            HouseholdMessage.BodyOneofCase.ProjectionInputs => message.ProjectionInputs.Step,
+            _ => -1,
+        };
+        _transcript.Received(_round, step, message);
+        switch (message.BodyCase)
+        {
+            case HouseholdMessage.BodyOneofCase.Join:
+                OnJoin(message.Join, outbox);
+                break;
+            case HouseholdMessage.BodyOneofCase.PartialSums:
+                OnPartialSums(Sender(message), message.PartialSums, outbox);
+                break;
+            case HouseholdMessage.BodyOneofCase.Upload:
+                OnUpload(Sender(message), message.Upload, outbox);
+                break;
+            default:
+                OnProjection(Sender(message), message, outbox);
+                break;
+        }
+    }
+
+    /// <summary>
+    /// The round's upload deadline passed: aggregates what arrived when at least the quorum did, otherwise records the
+    /// failed round and broadcasts the unchanged model; missing selected households are recorded as dropouts.
+    /// </summary>
+    /// <param name="outbox">Where the broadcast goes.</param>
+    public void CloseRound(ICoordinatorOutbox outbox)
+    {
+        ArgumentNullException.ThrowIfNull(outbox);
+        if (Phase != CoordinatorPhase.CollectingUploads)
+        {
+            throw new ProtocolException($"no round is collecting uploads (phase {Phase})");
+        }
+        Aggregate(outbox);
+    }
+
+    /// <summary>Ends the run: records completion and flushes the transcript.</summary>
+    public void Finish()
+    {
+        if (Phase == CoordinatorPhase.Finished)
+        {
+            return;
+        }
+        Event(EventKind.RunCompleted, [], $"{AggregatedRounds} rounds aggregated, {FailedRounds} failed");
+        _transcript.Flush();
+        Phase = CoordinatorPhase.Finished;
+    }
+
+    private int Sender(HouseholdMessage message)
+    {
+        int m = message.HouseholdIndex;
+        if (m < 0 || m >= _m || _registered[m] is null)
+        {
+            throw new ProtocolException($"message from unknown household index {m}");
+        }
+        return m;
+    }
+
+    private void OnJoin(JoinRequest join, ICoordinatorOutbox outbox)
+    {
+        if (Phase != CoordinatorPhase.Admitting)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' joins after admission closed");
+        }
+        if (!_rosterIndex.TryGetValue(join.HouseholdId, out int m))
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' is not on the roster");
+        }
+        if (_registered[m] is not null)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' joined twice");
+        }
+        if (join.ProtocolVersion != 1)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' speaks protocol version {join.ProtocolVersion}; this coordinator speaks 1");
+        }
+        if (join.FeatureCount != _setup.FeatureCount)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' has {join.FeatureCount} features; the run uses {_setup.FeatureCount}");
+        }
+        if (!_setup.Feeder.TryGetIndex(join.BusId, out _))
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' names bus '{join.BusId}', not on feeder '{_setup.Feeder.Name}'");
+        }
+        if (!double.IsFinite(join.TanPhi) || join.TanPhi < 0)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' sends tan phi {join.TanPhi}");
+        }
+        _registered[m] = new RegisteredHousehold(m, join.HouseholdId, join.BusId, join.TanPhi);
+        _joined++;
+        var accepted = new JoinAccepted
+        {
+            HouseholdIndex = m,
+            HouseholdCount = _m,
+            Scheme = _setup.Scheme.Name,
+            ActorShape = ShapeCodec.ToSpec(ActorShape),
+            CriticShape = ShapeCodec.ToSpec(CriticShape),
+            StepsPerRound = _stepsPerRound,
+            ProjectionInputs = _setup.ProjectionForm.Name,
+        };
+        Send(outbox, new CoordinatorMessage { HouseholdIndex = m, Accepted = accepted }, -1);
+        if (_joined < _m)
+        {
+            return;
+        }
+        _projection = _setup.ProjectionForm.CreateCoordinatorSide(_setup.Feeder, _registered!, _setup.FixedLoads, _setup.Projection);
+        // The initial model: per household with its own columns (plain), or one broadcast of the shared part.
+        if (_setup.Scheme.ColumnsCrossWire)
+        {
+            for (int h = 0; h < _m; h++)
+            {
+                var model = new ModelBroadcast { Round = 0, Scope = ParameterScope.OwnColumnsAndShared };
+                Append(model.ActorParameters, _actor, h);
+                Append(model.CriticParameters, _critic, h);
+                Send(outbox, new CoordinatorMessage { HouseholdIndex = h, Model = model }, -1);
+            }
+        }
+        else
+        {
+            var model = new ModelBroadcast { Round = 0, Scope = ParameterScope.Shared };
+            Append(model.ActorParameters, _actor, -1);
+            Append(model.CriticParameters, _critic, -1);
+            Send(outbox, new CoordinatorMessage { HouseholdIndex = -1, Model = model }, -1);
+        }
+        _transcript.Flush();
+        Phase = CoordinatorPhase.CollectingPartialSums;
+    }
+
+    private static void Append(Google.Protobuf.Collections.RepeatedField<float> target, DenseNetwork network, int household)
+    {
+        if (household >= 0)
+        {
+            var (o, n) = network.FirstLayerBlockRange(household);
+            AddRange(target, network.Parameters.Slice(o, n));
+        }
+        var (so, sn) = network.SharedRange();
+        AddRange(target, network.Parameters.Slice(so, sn));
+    }
+
+    private static void AddRange(Google.Protobuf.Collections.RepeatedField<float> target, ReadOnlySpan<float> values)
+    {
+        target.Capacity = Math.Max(target.Capacity, target.Count + values.Length);
+        foreach (float v in values)
+        {
+            target.Add(v);
+        }
+    }
+
+    private void OnPartialSums(int m, PartialSums sums, ICoordinatorOutbox outbox)
+    {
+        if (Phase != CoordinatorPhase.CollectingPartialSums)
+        {
+            throw new ProtocolException($"partial sums from household {m} in phase {Phase}");
+        }
+        if (sums.Round != _round || sums.Step / _stepsPerRound != _round)
+        {
+            throw new ProtocolException($"partial sums from household {m} for round {sums.Round} step {sums.Step}; the coordinator is in round {_round}");
+        }
+        if (_stepCount == 0)
+        {
+            if (sums.Step <= _step)
+            {
+                throw new ProtocolException($"partial sums from household {m} for step {sums.Step}, which is not after step {_step}");
+            }
+        }
+        else if (sums.Step != _step)
+        {
+            throw new ProtocolException($"partial sums from household {m} for step {sums.Step}; step {_step} is open");
+        }
+        if (_stepSeen[m])
+        {
+            throw new ProtocolException($"household {m} sent its partial sums twice in step {_step}");
+        }
+        if (_stepCount == 0)
+        {
+            _scheme.PartialSums.Begin();
+        }
+        _scheme.PartialSums.Add(m, sums);
+        if (_stepCount == 0)
+        {
+            _step = sums.Step;
+        }
+        _stepSeen[m] = true;
+        _stepCount++;
+        if (_stepCount < _m)
+        {
+            return;
+        }
+        for (int h = 0; h < _m; h++)
+        {
+            SumsReply reply = _sums[h];
+            reply.Round = _round;
+            reply.Step = _step;
+            _scheme.PartialSums.WriteReply(h, reply);
+            _message.HouseholdIndex = h;
+            _message.Sums = reply;
+            Send(outbox, _message, _step);
+        }
+        Array.Clear(_stepSeen);
+        _stepCount = 0;
+        _projection!.Begin();
+        Phase = CoordinatorPhase.CollectingProjectionInputs;
+    }
+
+    private void OnProjection(int m, HouseholdMessage message, ICoordinatorOutbox outbox)
+    {
+        if (Phase != CoordinatorPhase.CollectingProjectionInputs)
+        {
+            throw new ProtocolException($"{message.BodyCase} from household {m} in phase {Phase}");
+        }
+        if (message.BodyCase == HouseholdMessage.BodyOneofCase.ProjectionInputs
+            && (message.ProjectionInputs.Round != _round || message.ProjectionInputs.Step != _step))
+        {
+            throw new ProtocolException($"projection inputs from household {m} for round {message.ProjectionInputs.Round} step {message.ProjectionInputs.Step}; step {_step} of round {_round} is open");
+        }
+        if (_projectionSeen[m])
+        {
+            throw new ProtocolException($"household {m} sent its projection inputs twice in step {_step}");
+        }
+        if (!_projection!.TryAdd(m, message))
+        {
+            throw new ProtocolException($"household {m} sent a {message.BodyCase} message, which the '{_setup.ProjectionForm.Name}' projection form does not take");
+        }
+        _projectionSeen[m] = true;
+        _projectionCount++;
+        if (_projectionCount < _m)
+        {
+            return;
+        }
+        ProjectionResult result = _projection.Project();
+        LastProjection = result;
+        ProjectionOutcomes[(int)result.Status]++;
+        for (int h = 0; h < _m; h++)
+        {
+            _projection.WriteReply(h, _round, _step, _message);
+            Send(outbox, _message, _step);
+        }
+        Array.Clear(_projectionSeen);
+        _projectionCount = 0;
+        if ((_step + 1) % _stepsPerRound != 0)
+        {
+            Phase = CoordinatorPhase.CollectingPartialSums;
+            return;
+        }
+        SelectAndCall(outbox);
+    }
+
+    private void SelectAndCall(ICoordinatorOutbox outbox)
+    {
+        int count = _setup.Options.SelectedPerRound(_m);
+        Array.Clear(_selected);
+        var order = new int[_m];
+        for (int i = 0; i < _m; i++)
+        {
+            order[i] = i;
+        }
+        var rng = new LearningRandom(LearningRandom.DeriveSeed(_setup.Options.Learning.Seed, 0x5E1EC7000UL + (ulong)_round));
+        for (int i = 0; i < count; i++)
+        {
+            int j = i + rng.NextInt(_m - i);
+            (order[i], order[j]) = (order[j], order[i]);
+            _selected[order[i]] = true;
+        }
+        var chosen = new List<int>(count);
+        for (int i = 0; i < _m; i++)
+        {
+            if (_selected[i])
+            {
+                chosen.Add(i);
+            }
+        }
+        Event(EventKind.RoundSelected, chosen, $"{count} of {_m} households called to train");
+        _selectedCount = count;
+        _uploadCount = 0;
+        Array.Clear(_uploads);
+        Phase = CoordinatorPhase.CollectingUploads;
+        for (int h = 0; h < _m; h++)
+        {
+            Send(outbox, new CoordinatorMessage { HouseholdIndex = h, Training = new TrainingCall { Round = _round, Selected = _selected[h] } }, -1);
+        }
+    }
+
+    private void OnUpload(int m, ParameterUpload upload, ICoordinatorOutbox outbox)
+    {
+        if (Phase != CoordinatorPhase.CollectingUploads)
+        {
+            throw new ProtocolException($"upload from household {m} in phase {Phase}");
+        }
+        if (upload.Round != _round)
+        {
+            throw new ProtocolException($"upload from household {m} for round {upload.Round}; round {_round} is collecting");
+        }
+        if (!_selected[m])
+        {
+            throw new ProtocolException($"household {m} uploaded without being called in round {_round}");
+        }
+        if (_uploads[m] is not null)
+        {
+            throw new ProtocolException($"household {m} uploaded twice in round {_round}");
+        }
+        ParameterScope expected = _setup.Scheme.ColumnsCrossWire ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
+        int actorLength = _actorShared.Length + (_setup.Scheme.ColumnsCrossWire ? _actor.FirstLayerBlockRange(m).Length : 0);
+        int criticLength = _criticShared.Length + (_setup.Scheme.ColumnsCrossWire ? _critic.FirstLayerBlockRange(m).Length : 0);
+        if (upload.Scope != expected || upload.ActorParameters.Count != actorLength || upload.CriticParameters.Count != criticLength)
+        {
+            throw new ProtocolException($"upload from household {m}: scope {upload.Scope} with {upload.ActorParameters.Count} + {upload.CriticParameters.Count} parameters; expected {expected} with {actorLength} + {criticLength}");
+        }
+        if (upload.SampleCount < 0)
+        {
+            throw new ProtocolException($"upload from household {m} claims {upload.SampleCount} samples");
+        }
+        foreach (float v in upload.ActorParameters)
+        {
+            if (!float.IsFinite(v))
+            {
+                throw new ProtocolException($"upload from household {m} holds a non-finite actor parameter");
+            }
+        }
+        foreach (float v in upload.CriticParameters)
+        {
+            if (!float.IsFinite(v))
+            {
+                throw new ProtocolException($"upload from household {m} holds a non-finite critic parameter");
+            }
+        }
+        _uploads[m] = upload.Clone();
+        _uploadCount++;
+        if (_uploadCount == _selectedCount)
+        {
+            Aggregate(outbox);
+        }
+    }
+
+    private void Aggregate(ICoordinatorOutbox outbox)
+    {
+        var received = new List<ReceivedUpload>(_uploadCount);
+        var missing = new List<int>();
+        long samples = 0;
+        for (int h = 0; h < _m; h++)
+        {
+            if (_uploads[h] is { } u)
+            {
+                received.Add(new ReceivedUpload(h, u));
+                samples += u.SampleCount;
+            }
+            else if (_selected[h])
+            {
+                missing.Add(h);
+            }
+        }
+        if (missing.Count > 0)
+        {
+            Event(EventKind.Dropout, missing, $"{missing.Count} selected households sent no upload in round {_round}");
+        }
+        var contributors = received.Select(r => r.Household).ToList();
+        bool ok = received.Count >= _setup.Options.MinQuorum && samples > 0;
+        if (ok)
+        {
+            _scheme.AggregateUploads(received, _actorShared, _criticShared);
+            _actorShared.CopyTo(_actor.Parameters.Slice(_actor.SharedRange().Offset));
+            _criticShared.CopyTo(_critic.Parameters.Slice(_critic.SharedRange().Offset));
+            if (_setup.Scheme.ColumnsCrossWire)
+            {
+                // Each household's columns are trained by that household alone: its upload is their new value.
+                foreach (ReceivedUpload r in received)
+                {
+                    CopyColumns(_actor, r.Household, r.Upload.ActorParameters);
+                    CopyColumns(_critic, r.Household, r.Upload.CriticParameters);
+                }
+            }
+            AggregatedRounds++;
+            Event(EventKind.RoundAggregated, contributors, $"{_setup.Scheme.Name}: {received.Count} uploads, {samples} samples");
+        }
+        else
+        {
+            FailedRounds++;
+            Event(EventKind.QuorumFailed, contributors, $"{received.Count} uploads ({samples} samples) below the quorum of {_setup.Options.MinQuorum}; model kept");
+        }
+        int next = _round + 1;
+        var model = new ModelBroadcast { Round = next, Scope = ParameterScope.Shared, Aggregated = ok };
+        if (ok)
+        {
+            model.Contributors.AddRange(contributors);
+        }
+        Append(model.ActorParameters, _actor, -1);
+        Append(model.CriticParameters, _critic, -1);
+        Send(outbox, new CoordinatorMessage { HouseholdIndex = -1, Model = model }, -1);
+        _round = next;
+        Array.Clear(_uploads);
+        Phase = CoordinatorPhase.CollectingPartialSums;
+        _transcript.Flush();
+    }
+
+    private static void CopyColumns(DenseNetwork network, int household, Google.Protobuf.Collections.RepeatedField<float> values)
+    {
+        var (o, n) = network.FirstLayerBlockRange(household);
+        Span<float> p = network.Parameters;
+        for (int i = 0; i < n; i++)
+        {
+            p[o + i] = values[i];
+        }
+    }
+
+    private void Event(EventKind kind, IReadOnlyList<int> households, string detail)
+    {
+        var e = new CoordinatorEvent { Kind = kind, Detail = detail };
+        e.Households.AddRange(households);
+        _transcript.Event(_round, -1, e);
+    }
+
+    private void Send(ICoordinatorOutbox outbox, CoordinatorMessage message, long step)
+    {
+        _transcript.Sent(_round, step, message);
+        outbox.Send(message);
+    }
+}

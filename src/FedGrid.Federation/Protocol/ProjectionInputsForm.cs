@@ -1,0 +1,248 @@
+using FedGrid.Federation.Schemes;
+using FedGrid.Federation.Wire;
+using FedGrid.Grid.Feeders;
+using FedGrid.Grid.Projection;
+
+namespace FedGrid.Federation.Protocol;
+
+/// <summary>A household as the coordinator registered it from its <see cref="JoinRequest"/>.</summary>
+/// <param name="Index">Block index m.</param>
+/// <param name="Id">Household id.</param>
+/// <param name="BusId">Bus it is connected to.</param>
+/// <param name="TanPhi">Reactive per real power.</param>
+public sealed record RegisteredHousehold(int Index, string Id, string BusId, double TanPhi);
+
+/// <summary>
+/// How the safety projection's inputs reach the coordinator and its result gets back (DESIGN.md §2). The
+/// <c>household</c> form (<see cref="HouseholdProjectionInputs"/>) sends each household's proposal, bounds and base load;
+/// the <c>bus-aggregate</c> form of a later issue plugs in here with its own messages.
+/// </summary>
+public interface IProjectionInputsForm
+{
+    /// <summary>Form name ("household", "bus-aggregate").</summary>
+    string Name { get; }
+
+    /// <summary>Creates household m's side.</summary>
+    /// <param name="householdIndex">m.</param>
+    /// <returns>The household side.</returns>
+    IHouseholdProjectionSide CreateHouseholdSide(int householdIndex);
+
+    /// <summary>Creates the coordinator's side for a feeder and its registered households.</summary>
+    /// <param name="feeder">The feeder.</param>
+    /// <param name="households">Registered households in index order.</param>
+    /// <param name="fixedLoads">Loads the operator knows at buses besides the households (kW, kvar by bus id).</param>
+    /// <param name="options">Projection settings.</param>
+    /// <returns>The coordinator side.</returns>
+    ICoordinatorProjectionSide CreateCoordinatorSide(Feeder feeder, IReadOnlyList<RegisteredHousehold> households,
+        IReadOnlyList<(string BusId, double Kw, double Kvar)> fixedLoads, ProjectionOptions? options);
+}
+
+/// <summary>A household's part of the projection exchange. Allocates nothing per step.</summary>
+public interface IHouseholdProjectionSide
+{
+    /// <summary>Writes the step's projection inputs into a message the household sends.</summary>
+    /// <param name="round">Round.</param>
+    /// <param name="step">Decision step.</param>
+    /// <param name="proposalKw">Proposed flexible setpoint, kW.</param>
+    /// <param name="flexMinKw">Least flexible power, kW.</param>
+    /// <param name="flexMaxKw">Desired flexible power, kW.</param>
+    /// <param name="baseKw">Base load, kW.</param>
+    /// <param name="message">The outgoing message (reused by the household).</param>
+    void WriteInputs(int round, long step, double proposalKw, double flexMinKw, double flexMaxKw, double baseKw, HouseholdMessage message);
+
+    /// <summary>Reads the setpoint to apply from the coordinator's reply; false when the message is not this form's reply.</summary>
+    /// <param name="message">The reply.</param>
+    /// <param name="flexMinKw">The household's least flexible power of the step, kW.</param>
+    /// <param name="flexMaxKw">Its desired flexible power, kW.</param>
+    /// <param name="setpointKw">Receives the setpoint, inside the box.</param>
+    /// <returns>Whether the message was this form's reply.</returns>
+    bool TryReadSetpoint(CoordinatorMessage message, double flexMinKw, double flexMaxKw, out double setpointKw);
+}
+
+/// <summary>The coordinator's part of the projection exchange.</summary>
+public interface ICoordinatorProjectionSide
+{
+    /// <summary>Starts a step.</summary>
+    void Begin();
+
+    /// <summary>Takes one household's projection message; false when it is not this form's message.</summary>
+    /// <param name="household">Sender.</param>
+    /// <param name="message">The message (read during the call, not kept).</param>
+    /// <returns>Whether it was this form's message.</returns>
+    bool TryAdd(int household, HouseholdMessage message);
+
+    /// <summary>Projects the step once every household was added.</summary>
+    /// <returns>The projection's result (owned by the side, overwritten next step).</returns>
+    ProjectionResult Project();
+
+    /// <summary>Writes household m's reply for the projected step.</summary>
+    /// <param name="household">m.</param>
+    /// <param name="round">Round.</param>
+    /// <param name="step">Step.</param>
+    /// <param name="message">The outgoing message (its recipient and body are set).</param>
+    void WriteReply(int household, int round, long step, CoordinatorMessage message);
+}
+
+/// <summary>
+/// The <c>household</c> form: every household sends <see cref="ProjectionInputs"/> (proposal, box, base load); the
+/// coordinator projects with one <see cref="FlexibleUnit"/> per household (<see cref="SetpointProjector"/>) and returns
+/// each its <see cref="FinalSetpoint"/>. Each bus's fixed load is the sum of its households' base loads (reactive at
+/// each household's tan φ) plus the operator's known fixed loads.
+/// </summary>
+public sealed class HouseholdProjectionInputs : IProjectionInputsForm
+{
+    /// <summary>Form name.</summary>
+    public const string FormName = "household";
+
+    /// <inheritdoc />
+    public string Name => FormName;
+
+    /// <inheritdoc />
+    public IHouseholdProjectionSide CreateHouseholdSide(int householdIndex) => new HouseholdSide();
+
+    /// <inheritdoc />
+    public ICoordinatorProjectionSide CreateCoordinatorSide(Feeder feeder, IReadOnlyList<RegisteredHousehold> households,
+        IReadOnlyList<(string BusId, double Kw, double Kvar)> fixedLoads, ProjectionOptions? options) =>
+        new CoordinatorSide(feeder, households, fixedLoads, options);
+
+    private sealed class HouseholdSide : IHouseholdProjectionSide
+    {
+        private readonly ProjectionInputs _inputs = new();
+
+        public void WriteInputs(int round, long step, double proposalKw, double flexMinKw, double flexMaxKw, double baseKw, HouseholdMessage message)
+        {
+            _inputs.Round = round;
+            _inputs.Step = step;
+            _inputs.ProposalKw = proposalKw;
+            _inputs.FlexMinKw = flexMinKw;
+            _inputs.FlexMaxKw = flexMaxKw;
+            _inputs.BaseKw = baseKw;
+            message.ProjectionInputs = _inputs;
+        }
+
+        public bool TryReadSetpoint(CoordinatorMessage message, double flexMinKw, double flexMaxKw, out double setpointKw)
+        {
+            if (message.BodyCase != CoordinatorMessage.BodyOneofCase.Setpoint)
+            {
+                setpointKw = 0;
+                return false;
+            }
+            double s = message.Setpoint.SetpointKw;
+            if (!double.IsFinite(s))
+            {
+                throw new ProtocolException("final setpoint is not finite");
+            }
+            setpointKw = Math.Clamp(s, flexMinKw, flexMaxKw);
+            return true;
+        }
+    }
+
+    private sealed class CoordinatorSide : ICoordinatorProjectionSide
+    {
+        private readonly SetpointProjector _projector;
+        private readonly ProjectionInput _input;
+        private readonly ProjectionResult _result;
+        private readonly double[] _fixedKw, _fixedKvar, _tanPhi;
+        private readonly int[] _bus;
+        private readonly bool[] _seen;
+        private readonly FinalSetpoint[] _replies;
+
+        public CoordinatorSide(Feeder feeder, IReadOnlyList<RegisteredHousehold> households, IReadOnlyList<(string BusId, double Kw, double Kvar)> fixedLoads, ProjectionOptions? options)
+        {
+            var units = new FlexibleUnit[households.Count];
+            _bus = new int[households.Count];
+            _tanPhi = new double[households.Count];
+            for (int i = 0; i < households.Count; i++)
+            {
+                RegisteredHousehold h = households[i];
+                units[i] = new FlexibleUnit(h.Id, h.BusId, h.TanPhi);
+                _bus[i] = feeder.IndexOf(h.BusId);
+                _tanPhi[i] = h.TanPhi;
+            }
+            _projector = new SetpointProjector(feeder, units, options: options);
+            int buses = feeder.Network.BusCount;
+            _input = new ProjectionInput(buses, units.Length);
+            _result = _projector.CreateResult();
+            _fixedKw = new double[buses];
+            _fixedKvar = new double[buses];
+            foreach (var (busId, kw, kvar) in fixedLoads)
+            {
+                int b = feeder.IndexOf(busId);
+                _fixedKw[b] += kw;
+                _fixedKvar[b] += kvar;
+            }
+            _seen = new bool[units.Length];
+            _replies = new FinalSetpoint[units.Length];
+            for (int i = 0; i < _replies.Length; i++)
+            {
+                _replies[i] = new FinalSetpoint();
+            }
+        }
+
+        public void Begin()
+        {
+            _fixedKw.CopyTo(_input.BaseLoadKw, 0);
+            _fixedKvar.CopyTo(_input.BaseLoadKvar, 0);
+            Array.Clear(_seen);
+        }
+
+        public bool TryAdd(int household, HouseholdMessage message)
+        {
+            if (message.BodyCase != HouseholdMessage.BodyOneofCase.ProjectionInputs)
+            {
+                return false;
+            }
+            ProjectionInputs p = message.ProjectionInputs;
+            if (!(double.IsFinite(p.ProposalKw) && double.IsFinite(p.FlexMinKw) && double.IsFinite(p.FlexMaxKw) && double.IsFinite(p.BaseKw)))
+            {
+                throw new ProtocolException($"projection inputs of household {household} are not finite");
+            }
+            if (!(p.FlexMinKw >= 0 && p.FlexMaxKw >= p.FlexMinKw))
+            {
+                throw new ProtocolException($"projection inputs of household {household}: box [{p.FlexMinKw}, {p.FlexMaxKw}] kW is not a box of non-negative power");
+            }
+            if (_seen[household])
+            {
+                throw new ProtocolException($"household {household} sent its projection inputs twice in one step");
+            }
+            _seen[household] = true;
+            _input.MinKw[household] = p.FlexMinKw;
+            _input.MaxKw[household] = p.FlexMaxKw;
+            _input.ProposalKw[household] = Math.Clamp(p.ProposalKw, p.FlexMinKw, p.FlexMaxKw);
+            _input.BaseLoadKw[_bus[household]] += p.BaseKw;
+            _input.BaseLoadKvar[_bus[household]] += p.BaseKw * _tanPhi[household];
+            return true;
+        }
+
+        public ProjectionResult Project()
+        {
+            foreach (bool s in _seen)
+            {
+                if (!s)
+                {
+                    throw new ProtocolException("projection needs every household's inputs");
+                }
+            }
+            _projector.Project(_input, _result);
+            return _result;
+        }
+
+        public void WriteReply(int household, int round, long step, CoordinatorMessage message)
+        {
+            FinalSetpoint r = _replies[household];
+            r.Round = round;
+            r.Step = step;
+            r.SetpointKw = _result.SetpointKw[household];
+            r.Outcome = _result.Status switch
+            {
+                ProjectionStatus.AlreadyFeasible => ProjectionOutcome.AlreadyFeasible,
+                ProjectionStatus.Projected => ProjectionOutcome.Projected,
+                ProjectionStatus.Unverified => ProjectionOutcome.Unverified,
+                ProjectionStatus.Infeasible => ProjectionOutcome.Infeasible,
+                _ => ProjectionOutcome.SolverFailure,
+            };
+            message.HouseholdIndex = household;
+            message.Setpoint = r;
+        }
+    }
+}

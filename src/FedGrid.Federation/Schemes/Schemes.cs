@@ -1,0 +1,377 @@
+using FedGrid.Federation.Wire;
+
+namespace FedGrid.Federation.Schemes;
+
+/// <summary>
+/// A federated scheme: what crosses the wire and how the coordinator combines it. The protocol machines call the
+/// scheme at four seams — partial sums out of a household (<see cref="IHouseholdSchemeSide.EncodePartialSums"/>),
+/// the coordinator's combination and reply (<see cref="IPartialSumsCombiner"/>), the reply back into the household
+/// (<see cref="IHouseholdSchemeSide.DecodeSums"/>), and parameter uploads out of a household and into the aggregate
+/// (<see cref="IHouseholdSchemeSide.EncodeUpload"/>, <see cref="ICoordinatorSchemeSide.AggregateUploads"/>). Masked
+/// sums, differential privacy and robust aggregation plug in here without touching the machines.
+/// </summary>
+public interface IFederationScheme
+{
+    /// <summary>Scheme name as written in messages, transcripts and summaries.</summary>
+    string Name { get; }
+
+    /// <summary>
+    /// Whether a household's first-layer columns W_m cross the wire: in the initial model (coordinator → household)
+    /// and in every upload (household → coordinator). False: the household draws W_m itself and keeps it.
+    /// </summary>
+    bool ColumnsCrossWire { get; }
+
+    /// <summary>Creates household m's side (one per household; may hold per-household secrets and buffers).</summary>
+    /// <param name="householdIndex">m.</param>
+    /// <param name="householdSeed">The household's own seed (never sent).</param>
+    /// <returns>The household side.</returns>
+    IHouseholdSchemeSide CreateHouseholdSide(int householdIndex, ulong householdSeed);
+
+    /// <summary>Creates the coordinator's side.</summary>
+    /// <param name="householdCount">M.</param>
+    /// <param name="actorSums">Actor first-layer width H₁.</param>
+    /// <param name="criticSums">Critic first-layer width.</param>
+    /// <returns>The coordinator side.</returns>
+    ICoordinatorSchemeSide CreateCoordinatorSide(int householdCount, int actorSums, int criticSums);
+}
+
+/// <summary>The household's part of a scheme. Implementations allocate nothing per call after construction.</summary>
+public interface IHouseholdSchemeSide
+{
+    /// <summary>Writes the household's partial sums into the outgoing message (identity, masking, noise …).</summary>
+    /// <param name="actor">a_m = W_m x_m of the actor.</param>
+    /// <param name="critic">c_m of the critic.</param>
+    /// <param name="message">The outgoing message; its vectors are cleared and refilled.</param>
+    void EncodePartialSums(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, PartialSums message);
+
+    /// <summary>Turns the coordinator's reply into the sums over the other households.</summary>
+    /// <param name="reply">The reply.</param>
+    /// <param name="ownActor">The household's own actor partial sums (subtracted from a TOTAL reply).</param>
+    /// <param name="ownCritic">The household's own critic partial sums.</param>
+    /// <param name="otherActor">Receives Σ_{k≠m} a_k.</param>
+    /// <param name="otherCritic">Receives Σ_{k≠m} c_k.</param>
+    void DecodeSums(SumsReply reply, ReadOnlySpan<float> ownActor, ReadOnlySpan<float> ownCritic, Span<float> otherActor, Span<float> otherCritic);
+
+    /// <summary>Writes the locally trained parameters (in the upload's scope) into the outgoing upload.</summary>
+    /// <param name="actor">Actor parameters of the scope.</param>
+    /// <param name="critic">Critic parameters of the scope.</param>
+    /// <param name="message">The outgoing upload; its vectors are cleared and refilled.</param>
+    void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message);
+}
+
+/// <summary>The coordinator's part of a scheme.</summary>
+public interface ICoordinatorSchemeSide
+{
+    /// <summary>Combines one decision step's partial sums and writes each household's reply.</summary>
+    IPartialSumsCombiner PartialSums { get; }
+
+    /// <summary>
+    /// Aggregates a round's uploads into the shared parameters of both networks.
+    /// </summary>
+    /// <param name="uploads">The uploads that arrived, in household order, with their senders.</param>
+    /// <param name="actorShared">Receives the actor's shared parameters.</param>
+    /// <param name="criticShared">Receives the critic's shared parameters.</param>
+    void AggregateUploads(IReadOnlyList<ReceivedUpload> uploads, Span<float> actorShared, Span<float> criticShared);
+}
+
+/// <summary>One upload as the coordinator received it.</summary>
+/// <param name="Household">Sender's index.</param>
+/// <param name="Upload">The message (owned by the coordinator).</param>
+public sealed record ReceivedUpload(int Household, ParameterUpload Upload);
+
+/// <summary>The coordinator's combination of one decision step's partial sums.</summary>
+public interface IPartialSumsCombiner
+{
+    /// <summary>Starts a step: forgets the previous step's sums.</summary>
+    void Begin();
+
+    /// <summary>Takes household m's partial sums.</summary>
+    /// <param name="household">m.</param>
+    /// <param name="message">Its message (read during the call, not kept).</param>
+    void Add(int household, PartialSums message);
+
+    /// <summary>Writes the reply for household m (after every household of the step was added).</summary>
+    /// <param name="household">m.</param>
+    /// <param name="reply">The reply; its vectors are cleared and refilled.</param>
+    void WriteReply(int household, SumsReply reply);
+}
+
+/// <summary>How a round's shared parameters are combined from the uploads (FedAvg; robust rules plug in here).</summary>
+public interface IUploadAggregator
+{
+    /// <summary>Rule name ("fedavg", …).</summary>
+    string Name { get; }
+
+    /// <summary>Combines equally long vectors with their weights into <paramref name="result"/>.</summary>
+    /// <param name="vectors">One vector per upload.</param>
+    /// <param name="weights">One non-negative weight per upload (sample counts).</param>
+    /// <param name="result">Receives the combination.</param>
+    void Aggregate(IReadOnlyList<ReadOnlyMemory<float>> vectors, ReadOnlySpan<double> weights, Span<float> result);
+}
+
+/// <summary>
+/// FedAvg (McMahan et al. 2017): the sample-count-weighted mean θ = Σ_k n_k θ_k / Σ_k n_k, accumulated in double
+/// precision in upload order (deterministic).
+/// </summary>
+public sealed class FedAvgAggregator : IUploadAggregator
+{
+    private double[] _sum = [];
+
+    /// <inheritdoc />
+    public string Name => "fedavg";
+
+    /// <inheritdoc />
+    public void Aggregate(IReadOnlyList<ReadOnlyMemory<float>> vectors, ReadOnlySpan<double> weights, Span<float> result)
+    {
+        ArgumentNullException.ThrowIfNull(vectors);
+        if (vectors.Count == 0 || weights.Length != vectors.Count)
+        {
+            throw new ArgumentException("FedAvg needs at least one vector and one weight per vector.");
+        }
+        double total = 0;
+        foreach (double w in weights)
+        {
+            if (!(w >= 0) || !double.IsFinite(w))
+            {
+                throw new ArgumentException($"FedAvg weights must be finite and non-negative, got {w}.", nameof(weights));
+            }
+            total += w;
+        }
+        if (total <= 0)
+        {
+            throw new ArgumentException("FedAvg weights sum to zero.", nameof(weights));
+        }
+        if (_sum.Length != result.Length)
+        {
+            _sum = new double[result.Length];
+        }
+        Array.Clear(_sum);
+        for (int k = 0; k < vectors.Count; k++)
+        {
+            ReadOnlySpan<float> v = vectors[k].Span;
+            if (v.Length != result.Length)
+            {
+                throw new ArgumentException($"Upload {k} carries {v.Length} parameters; {result.Length} expected.", nameof(vectors));
+            }
+            double w = weights[k];
+            for (int i = 0; i < v.Length; i++)
+            {
+                _sum[i] += w * v[i];
+            }
+        }
+        for (int i = 0; i < result.Length; i++)
+        {
+            result[i] = (float)(_sum[i] / total);
+        }
+    }
+}
+
+/// <summary>
+/// The schemes without transforms: partial sums and parameters cross in the clear; the coordinator replies with the sum
+/// over the other households and aggregates the shared parameters with an <see cref="IUploadAggregator"/> (FedAvg by
+/// default). <c>plain</c> also sends each household's first-layer columns (initial model and uploads);
+/// <c>private-columns</c> never does.
+/// </summary>
+public sealed class ClearScheme : IFederationScheme
+{
+    private readonly Func<IUploadAggregator> _aggregator;
+
+    private ClearScheme(string name, bool columnsCrossWire, Func<IUploadAggregator>? aggregator)
+    {
+        Name = name;
+        ColumnsCrossWire = columnsCrossWire;
+        _aggregator = aggregator ?? (() => new FedAvgAggregator());
+    }
+
+    /// <summary>Name of the plain scheme.</summary>
+    public const string PlainName = "plain";
+
+    /// <summary>Name of the private-columns scheme.</summary>
+    public const string PrivateColumnsName = "private-columns";
+
+    /// <summary>The plain scheme: everything in the clear, W_m included.</summary>
+    /// <param name="aggregator">Creates the aggregation rule (FedAvg when null).</param>
+    /// <returns>The scheme.</returns>
+    public static ClearScheme Plain(Func<IUploadAggregator>? aggregator = null) => new(PlainName, true, aggregator);
+
+    /// <summary>The private-columns scheme: W_m never leaves household m; only the shared parameters are averaged.</summary>
+    /// <param name="aggregator">Creates the aggregation rule (FedAvg when null).</param>
+    /// <returns>The scheme.</returns>
+    public static ClearScheme PrivateColumns(Func<IUploadAggregator>? aggregator = null) => new(PrivateColumnsName, false, aggregator);
+
+    /// <summary>The scheme of a name ("plain" or "private-columns").</summary>
+    /// <param name="name">The name.</param>
+    /// <returns>The scheme.</returns>
+    /// <exception cref="ArgumentException">Unknown name.</exception>
+    public static ClearScheme FromName(string name) => name switch
+    {
+        PlainName => Plain(),
+        PrivateColumnsName => PrivateColumns(),
+        _ => throw new ArgumentException($"unknown scheme '{name}'; known: {PlainName}, {PrivateColumnsName}", nameof(name)),
+    };
+
+    /// <inheritdoc />
+    public string Name { get; }
+
+    /// <inheritdoc />
+    public bool ColumnsCrossWire { get; }
+
+    /// <inheritdoc />
+    public IHouseholdSchemeSide CreateHouseholdSide(int householdIndex, ulong householdSeed) => new ClearHouseholdSide();
+
+    /// <inheritdoc />
+    public ICoordinatorSchemeSide CreateCoordinatorSide(int householdCount, int actorSums, int criticSums) =>
+        new ClearCoordinatorSide(householdCount, actorSums, criticSums, _aggregator());
+
+    private sealed class ClearHouseholdSide : IHouseholdSchemeSide
+    {
+        public void EncodePartialSums(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, PartialSums message)
+        {
+            Fill(message.Actor, actor);
+            Fill(message.Critic, critic);
+        }
+
+        public void DecodeSums(SumsReply reply, ReadOnlySpan<float> ownActor, ReadOnlySpan<float> ownCritic, Span<float> otherActor, Span<float> otherCritic)
+        {
+            Read(reply.Actor, reply.Kind, ownActor, otherActor, "actor");
+            Read(reply.Critic, reply.Kind, ownCritic, otherCritic, "critic");
+        }
+
+        public void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message)
+        {
+            Fill(message.ActorParameters, actor);
+            Fill(message.CriticParameters, critic);
+        }
+
+        private static void Read(Google.Protobuf.Collections.RepeatedField<float> sums, SumsKind kind, ReadOnlySpan<float> own, Span<float> others, string what)
+        {
+            if (sums.Count != others.Length)
+            {
+                throw new ProtocolException($"{what} sums reply carries {sums.Count} values; {others.Length} expected");
+            }
+            for (int i = 0; i < others.Length; i++)
+            {
+                others[i] = kind switch
+                {
+                    SumsKind.Others => sums[i],
+                    SumsKind.Total => sums[i] - own[i],
+                    _ => throw new ProtocolException($"sums reply of kind {kind} is not understood"),
+                };
+            }
+        }
+    }
+
+    private sealed class ClearCoordinatorSide : ICoordinatorSchemeSide
+    {
+        private readonly IUploadAggregator _aggregator;
+
+        public ClearCoordinatorSide(int householdCount, int actorSums, int criticSums, IUploadAggregator aggregator)
+        {
+            PartialSums = new OthersCombiner(householdCount, actorSums, criticSums);
+            _aggregator = aggregator;
+        }
+
+        public IPartialSumsCombiner PartialSums { get; }
+
+        public void AggregateUploads(IReadOnlyList<ReceivedUpload> uploads, Span<float> actorShared, Span<float> criticShared)
+        {
+            var actor = new ReadOnlyMemory<float>[uploads.Count];
+            var critic = new ReadOnlyMemory<float>[uploads.Count];
+            var weights = new double[uploads.Count];
+            for (int k = 0; k < uploads.Count; k++)
+            {
+                ParameterUpload u = uploads[k].Upload;
+                float[] a = [.. u.ActorParameters], c = [.. u.CriticParameters];
+                // Under plain the upload starts with the sender's own columns; the shared part is the tail.
+                actor[k] = a.AsMemory(a.Length - actorShared.Length);
+                critic[k] = c.AsMemory(c.Length - criticShared.Length);
+                weights[k] = u.SampleCount;
+            }
+            _aggregator.Aggregate(actor, weights, actorShared);
+            _aggregator.Aggregate(critic, weights, criticShared);
+        }
+    }
+
+    /// <summary>Replies Σ_{k≠m} a_k: the total in double precision in household order, minus household m's own part.</summary>
+    private sealed class OthersCombiner : IPartialSumsCombiner
+    {
+        private readonly double[] _actorTotal, _criticTotal;
+        private readonly float[] _actor, _critic;
+        private readonly int _na, _nc;
+
+        public OthersCombiner(int households, int actorSums, int criticSums)
+        {
+            _na = actorSums;
+            _nc = criticSums;
+            _actorTotal = new double[actorSums];
+            _criticTotal = new double[criticSums];
+            _actor = new float[households * actorSums];
+            _critic = new float[households * criticSums];
+        }
+
+        public void Begin()
+        {
+            Array.Clear(_actorTotal);
+            Array.Clear(_criticTotal);
+        }
+
+        public void Add(int household, PartialSums message)
+        {
+            Copy(message.Actor, _actor.AsSpan(household * _na, _na), _actorTotal, "actor");
+            Copy(message.Critic, _critic.AsSpan(household * _nc, _nc), _criticTotal, "critic");
+        }
+
+        public void WriteReply(int household, SumsReply reply)
+        {
+            reply.Kind = SumsKind.Others;
+            Others(reply.Actor, _actorTotal, _actor.AsSpan(household * _na, _na));
+            Others(reply.Critic, _criticTotal, _critic.AsSpan(household * _nc, _nc));
+        }
+
+        private static void Copy(Google.Protobuf.Collections.RepeatedField<float> source, Span<float> own, double[] total, string what)
+        {
+            if (source.Count != own.Length)
+            {
+                throw new ProtocolException($"{what} partial sums carry {source.Count} values; {own.Length} expected");
+            }
+            for (int i = 0; i < own.Length; i++)
+            {
+                float v = source[i];
+                if (!float.IsFinite(v))
+                {
+                    throw new ProtocolException($"{what} partial sum {i} is not finite");
+                }
+                own[i] = v;
+                total[i] += v;
+            }
+        }
+
+        private static void Others(Google.Protobuf.Collections.RepeatedField<float> target, double[] total, ReadOnlySpan<float> own)
+        {
+            target.Clear();
+            for (int i = 0; i < own.Length; i++)
+            {
+                target.Add((float)(total[i] - own[i]));
+            }
+        }
+    }
+
+    internal static void Fill(Google.Protobuf.Collections.RepeatedField<float> target, ReadOnlySpan<float> values)
+    {
+        target.Clear();
+        for (int i = 0; i < values.Length; i++)
+        {
+            target.Add(values[i]);
+        }
+    }
+}
+
+/// <summary>A message that breaks the protocol: wrong state, wrong round or step, wrong sizes, non-finite values.</summary>
+public sealed class ProtocolException : Exception
+{
+    /// <summary>Creates the exception.</summary>
+    /// <param name="message">What was wrong.</param>
+    public ProtocolException(string message) : base(message)
+    {
+    }
+}

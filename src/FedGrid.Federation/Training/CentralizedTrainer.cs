@@ -1,0 +1,229 @@
+using System.Collections.Immutable;
+using System.Diagnostics;
+using FedGrid.Households.Scenarios;
+using FedGrid.Learning.ActorCritic;
+using FedGrid.Learning.Randomness;
+using FedGrid.Learning.Tabular;
+
+namespace FedGrid.Federation.Training;
+
+/// <summary>The learners the trainer can run.</summary>
+public enum LearnerKind
+{
+    /// <summary>Advantage actor-critic with a squashed-Gaussian policy (<see cref="ActorCriticLearner"/>).</summary>
+    ActorCritic,
+    /// <summary>Tabular Q-learning, one table per household (<see cref="QLearner"/>).</summary>
+    QLearning,
+    /// <summary>Tabular double Q-learning, two tables per household (<see cref="DoubleQLearner"/>).</summary>
+    DoubleQ,
+}
+
+/// <summary>Names of the learners as used on the command line and in summaries.</summary>
+public static class LearnerNames
+{
+    /// <summary>"actor-critic", "q-learning" or "double-q".</summary>
+    public static string Of(LearnerKind kind) => kind switch
+    {
+        LearnerKind.ActorCritic => "actor-critic",
+        LearnerKind.QLearning => "q-learning",
+        LearnerKind.DoubleQ => "double-q",
+        _ => throw new ArgumentOutOfRangeException(nameof(kind)),
+    };
+
+    /// <summary>The kind of a name, or null when unknown.</summary>
+    public static LearnerKind? Parse(string name) => name switch
+    {
+        "actor-critic" => LearnerKind.ActorCritic,
+        "q-learning" => LearnerKind.QLearning,
+        "double-q" => LearnerKind.DoubleQ,
+        _ => null,
+    };
+}
+
+/// <summary>Settings of a centralized training run. Null learner settings take <see cref="TrainingDefaults"/>.</summary>
+/// <param name="Learner">Which learner.</param>
+/// <param name="Seed">Seed of the learner (initial weights, exploration); the data come from the scenario's own seed.</param>
+/// <param name="ActorCritic">Actor-critic settings (its own seed is replaced by one derived from <paramref name="Seed"/>).</param>
+/// <param name="Tabular">Tabular settings (seed replaced likewise; a null ε schedule length is fitted to the budget).</param>
+/// <param name="Task">Adapter settings (projection on by default).</param>
+public sealed record TrainingOptions(LearnerKind Learner, ulong Seed = 1, ActorCriticOptions? ActorCritic = null, TabularOptions? Tabular = null,
+    HouseholdTaskOptions? Task = null);
+
+/// <summary>The settings this project tuned on the default scenario (60 days); see the README "Training" section.</summary>
+public static class TrainingDefaults
+{
+    /// <summary>Actor-critic: [64, 64] tanh, γ = 0.97, 16-step rollouts, actor 1e-3, critic 3e-3, entropy 1e-3, cost scale 2.</summary>
+    public static ActorCriticOptions ActorCritic { get; } = new()
+    {
+        HiddenSizes = [64, 64],
+        Gamma = 0.97,
+        RolloutSteps = 16,
+        ActorLearningRate = 1e-3,
+        CriticLearningRate = 3e-3,
+        EntropyCoefficient = 1e-3,
+        CostScale = 2.0,
+        LogStdMin = -3f,
+        LogStdMax = 0.5f,
+    };
+
+    /// <summary>Tabular: γ = 0.95, ε from 1 to 0.05 over the first third of the budget, α = 1/(1+n)^0.6 per visit count.</summary>
+    public static TabularOptions Tabular(int decisionSteps) => new()
+    {
+        Gamma = 0.95,
+        Epsilon = new LinearSchedule(1.0, 0.05, Math.Max(1, decisionSteps / 3)),
+        LearningRate = new PolynomialSchedule(1.0, 0.6),
+    };
+
+    /// <summary>Levels of the tabular action grid inside each household's box.</summary>
+    public const int ActionLevels = 5;
+
+    /// <summary>
+    /// Bins per state feature of the tabular learners (same order as <see cref="HouseholdControlTask.FeatureNames"/>): the
+    /// desired power (3), price (4), time of day via sin and cos (4 each), weekend (2); the rest unbinned.
+    /// </summary>
+    public static ImmutableArray<int> TabularBins { get; } = [1, 1, 3, 4, 4, 4, 2, 1, 1, 1];
+
+    /// <summary>Lower ends of the tabular bins (scaled features).</summary>
+    public static ImmutableArray<float> TabularLower { get; } = [0, 0, 0, 0.2f, -1, -1, 0, 0, 0, 0];
+
+    /// <summary>Upper ends of the tabular bins (scaled features).</summary>
+    public static ImmutableArray<float> TabularUpper { get; } = [1, 1, 1.5f, 1.8f, 1, 1, 1, 1, 1, 1];
+}
+
+/// <summary>What a training run produced.</summary>
+/// <param name="Learner">Learner name.</param>
+/// <param name="Days">One entry per simulated day, in order.</param>
+/// <param name="DecisionSteps">Slots stepped (each a decision for every household).</param>
+/// <param name="Updates">Learning updates made.</param>
+/// <param name="Elapsed">Wall time of the training.</param>
+public sealed record TrainingRun(string Learner, ImmutableArray<DayMetrics> Days, long DecisionSteps, long Updates, TimeSpan Elapsed);
+
+/// <summary>
+/// Trains one learner centrally (the coordinator sees every household's state) on the days of a scenario: one
+/// episode per simulated day, each day new data, the training budget is the scenario's number of days. Every
+/// slot's proposals go through the safety projection (<see cref="HouseholdControlTask"/>). The learner acts with
+/// exploration and learns as it goes, so a day's figures are the online cost of that day. The horizon is continuous:
+/// the learners bootstrap across midnight (deferred energy carries over) and stop at the end of the horizon.
+/// Seeded and deterministic.
+/// </summary>
+public sealed class CentralizedTrainer
+{
+    private readonly Scenario _scenario;
+
+    /// <summary>Prepares a run.</summary>
+    /// <param name="scenario">The scenario; its days are the budget.</param>
+    /// <param name="options">Settings.</param>
+    public CentralizedTrainer(Scenario scenario, TrainingOptions options)
+    {
+        ArgumentNullException.ThrowIfNull(scenario);
+        ArgumentNullException.ThrowIfNull(options);
+        _scenario = scenario;
+        Options = options;
+        Task = new HouseholdControlTask(scenario, options.Task);
+    }
+
+    /// <summary>The settings.</summary>
+    public TrainingOptions Options { get; }
+
+    /// <summary>The adapter the learner runs on.</summary>
+    public HouseholdControlTask Task { get; }
+
+    /// <summary>The actor-critic after <see cref="Train"/> (null for the tabular learners).</summary>
+    public ActorCriticLearner? ActorCritic { get; private set; }
+
+    /// <summary>The tabular controller after <see cref="Train"/> (null for actor-critic).</summary>
+    public TabularController? Tabular { get; private set; }
+
+    /// <summary>Trains over every day of the scenario.</summary>
+    /// <param name="progress">Called after each day with its figures, or null.</param>
+    public TrainingRun Train(Action<DayMetrics>? progress = null)
+    {
+        var watch = Stopwatch.StartNew();
+        var days = ImmutableArray.CreateBuilder<DayMetrics>(Task.DayCount);
+        long steps, updates;
+        Action<DayMetrics> onDay = d =>
+        {
+            days.Add(d);
+            progress?.Invoke(d);
+        };
+        (steps, updates) = Options.Learner == LearnerKind.ActorCritic ? RunActorCritic(onDay) : RunTabular(onDay);
+        return new TrainingRun(LearnerNames.Of(Options.Learner), days.ToImmutable(), steps, updates, watch.Elapsed);
+    }
+
+    private (long Steps, long Updates) RunActorCritic(Action<DayMetrics> onDay)
+    {
+        ActorCriticOptions o = (Options.ActorCritic ?? TrainingDefaults.ActorCritic) with { Seed = LearningRandom.DeriveSeed(Options.Seed, 0xAC) };
+        HouseholdControlTask task = Task;
+        var learner = new ActorCriticLearner(task.AgentCount, task.StateSizePerAgent, 1, o);
+        ActorCritic = learner;
+        int n = task.AgentCount, s = n * task.StateSizePerAgent;
+        float[] state = new float[s], next = new float[s], lower = new float[n], upper = new float[n], actions = new float[n], costs = new float[n];
+        task.Reset(Options.Seed);
+        task.Observe(state);
+        long steps = 0, updates = 0;
+        while (true)
+        {
+            task.GetBounds(lower, upper);
+            learner.Act(state, lower, upper, actions, explore: true);
+            bool dayOver = task.Step(actions, costs);
+            steps++;
+            bool end = task.HorizonOver;
+            if (!end) task.Observe(next);
+            if (learner.Record(costs, next, end)) updates++;
+            (state, next) = (next, state);
+            if (dayOver)
+            {
+                onDay(task.LastDay!);
+                if (end) break;
+                task.NextDay();
+            }
+        }
+        return (steps, updates);
+    }
+
+    private (long Steps, long Updates) RunTabular(Action<DayMetrics> onDay)
+    {
+        HouseholdControlTask task = Task;
+        int n = task.AgentCount, k = task.StateSizePerAgent;
+        TabularOptions o = (Options.Tabular ?? TrainingDefaults.Tabular(task.Environment.SlotCount))
+            with { Seed = LearningRandom.DeriveSeed(Options.Seed, 0x7AB) };
+        var discretiser = new UniformDiscretiser(TrainingDefaults.TabularLower.AsSpan(), TrainingDefaults.TabularUpper.AsSpan(),
+            TrainingDefaults.TabularBins.AsSpan());
+        var grid = new BoxActionGrid(TrainingDefaults.ActionLevels);
+        var controller = new TabularController(n, k, discretiser, grid, o, Options.Learner == LearnerKind.DoubleQ);
+        Tabular = controller;
+        float[] state = new float[n * k], lower = new float[n], upper = new float[n], actions = new float[n], costs = new float[n];
+        int[] s = new int[n], a = new int[n];
+        task.Reset(Options.Seed);
+        task.Observe(state);
+        for (int m = 0; m < n; m++) s[m] = discretiser.Index(state.AsSpan(m * k, k));
+        long steps = 0, updates = 0;
+        while (true)
+        {
+            task.GetBounds(lower, upper);
+            for (int m = 0; m < n; m++)
+            {
+                a[m] = controller.Learner(m).SelectAction(s[m]);
+                grid.Decode(a[m], lower.AsSpan(m, 1), upper.AsSpan(m, 1), actions.AsSpan(m, 1));
+            }
+            bool dayOver = task.Step(actions, costs);
+            steps++;
+            bool end = task.HorizonOver;
+            if (!end) task.Observe(state);
+            for (int m = 0; m < n; m++)
+            {
+                int next = end ? s[m] : discretiser.Index(state.AsSpan(m * k, k));
+                controller.Learner(m).Update(s[m], a[m], costs[m], next, end);
+                updates++;
+                s[m] = next;
+            }
+            if (dayOver)
+            {
+                onDay(task.LastDay!);
+                if (end) break;
+                task.NextDay();
+            }
+        }
+        return (steps, updates);
+    }
+}

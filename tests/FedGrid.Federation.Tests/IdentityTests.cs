@@ -1,0 +1,198 @@
+using FedGrid.Federation.Protocol;
+using FedGrid.Federation.Runs;
+using FedGrid.Federation.Schemes;
+using FedGrid.Federation.Transcripts;
+using FedGrid.Federation.Wire;
+using FedGrid.Learning.ActorCritic;
+using FedGrid.Learning.Networks;
+
+namespace FedGrid.Federation.Tests;
+
+/// <summary>The identities of DESIGN.md §7: the split first layer equals the unsplit one; one local full-batch step of FedAvg equals one centralized step.</summary>
+public sealed class IdentityTests
+{
+    [Fact]
+    public void SplitForwardThroughTheProtocolEqualsTheFullForward()
+    {
+        var sink = new RecordingTranscript();
+        var run = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions { Scheme = ClearScheme.Plain(), Federation = TestRuns.Options() }, sink);
+        run.Start();
+        // The full model, assembled from what the coordinator sent each household (own columns + shared part).
+        var actor = new DenseNetwork(run.Coordinator.ActorShape);
+        foreach (TranscriptRecord r in sink.Records.Where(r => r.Kind() == RecordKind.Model))
+        {
+            int m = r.Sent.HouseholdIndex;
+            var (co, cn) = actor.FirstLayerBlockRange(m);
+            var (so, sn) = actor.SharedRange();
+            float[] values = [.. r.Sent.Model.ActorParameters];
+            values.AsSpan(0, cn).CopyTo(actor.Parameters.Slice(co, cn));
+            values.AsSpan(cn, sn).CopyTo(actor.Parameters.Slice(so, sn));
+        }
+        int features = run.World.StateSizePerAgent, n = run.Households.Count;
+        float[] state = new float[n * features];
+        run.World.Observe(state); // slot 0, what every household reads for its first step
+        Assert.True(run.StepOnce());
+
+        var full = new float[actor.Shape.OutputSize];
+        actor.Forward(state, actor.CreateWorkspace(), full);
+        var split = new float[actor.Shape.OutputSize];
+        var ws = actor.CreateWorkspace();
+        double worst = 0;
+        foreach (TranscriptRecord r in sink.Records.Where(r => r.Kind() == RecordKind.Sums && r.Step == 0))
+        {
+            int m = r.Sent.HouseholdIndex;
+            Assert.Equal(SumsKind.Others, r.Sent.Sums.Kind);
+            actor.ForwardSplit(m, state.AsSpan(m * features, features), [.. r.Sent.Sums.Actor], ws, split);
+            double scale = full.Max(v => Math.Abs(v));
+            for (int j = 0; j < full.Length; j++)
+            {
+                worst = Math.Max(worst, Math.Abs(split[j] - full[j]) / scale);
+            }
+        }
+        Assert.True(worst <= 1e-6, $"split forward differs from the full forward by {worst:E2} (relative to the output's size)");
+        // The partial sums each household sent are W_m x_m of the model it was given.
+        var a = new float[actor.Shape.FirstLayerSize];
+        foreach (TranscriptRecord r in sink.Records.Where(r => r.Kind() == RecordKind.PartialSums))
+        {
+            int m = r.Received.HouseholdIndex;
+            actor.PartialSums(m, state.AsSpan(m * features, features), a);
+            Assert.Equal(a, r.Received.PartialSums.Actor.ToArray());
+        }
+    }
+
+    [Fact]
+    public void OneFullBatchFedAvgRoundEqualsOneCentralizedStep()
+    {
+        const int steps = 12;
+        var fed = TestRuns.Options(stepsPerRound: steps) with
+        {
+            Learning = TestRuns.Options().Learning with { MaxGradientNorm = 1e12, RolloutSteps = 4 },
+            LocalTraining = new LocalTrainingOptions { FullBatch = true, Optimiser = LocalOptimiser.Sgd, Epochs = 1 },
+        };
+        var run = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions { Scheme = ClearScheme.Plain(), Federation = fed }, new RecordingTranscript());
+        run.Start();
+        DenseNetwork actor0 = Copy(run.Coordinator.Actor), critic0 = Copy(run.Coordinator.Critic);
+        for (int i = 0; i < steps - 1; i++)
+        {
+            run.StepOnce();
+        }
+        int n = run.Households.Count, f = run.World.StateSizePerAgent;
+        // Rows 0 … steps−2 of every household's own buffer (complete with costs), before the round's training.
+        var x = new float[steps][];
+        for (int t = 0; t < steps; t++)
+        {
+            x[t] = new float[n * f];
+        }
+        var pre = new float[n, steps];
+        var lo = new float[n, steps];
+        var hi = new float[n, steps];
+        var cost = new float[n, steps];
+        for (int m = 0; m < n; m++)
+        {
+            var b = run.Households[m].Buffer!;
+            Assert.Equal(steps - 1, b.Count);
+            for (int t = 0; t < steps - 1; t++)
+            {
+                b.StateRow(t).CopyTo(x[t].AsSpan(m * f, f));
+                pre[m, t] = b.PreSquashRow(t)[0];
+                lo[m, t] = b.LowerRow(t)[0];
+                hi[m, t] = b.UpperRow(t)[0];
+                cost[m, t] = b.Cost[t];
+            }
+        }
+        run.StepOnce(); // last step of round 0: training, uploads, FedAvg, broadcast
+        Assert.Equal(1, run.Coordinator.AggregatedRounds);
+        for (int m = 0; m < n; m++)
+        {
+            // After the round the buffer keeps only the bootstrap row (the round's last step).
+            run.Households[m].Buffer!.StateRow(0).CopyTo(x[steps - 1].AsSpan(m * f, f));
+        }
+
+        // The centralized reference: full forward and backward passes on the concatenated state, every household's own
+        // loss with weight n_m / N (equal here), one SGD step from the same parameters.
+        ActorCriticOptions o = fed.Learning;
+        int rows = steps - 1;
+        float weight = 1f / rows, gamma = (float)o.Gamma;
+        var actorGrad = new float[actor0.ParameterCount];
+        var criticGrad = new float[critic0.ParameterCount];
+        var ownActorGrad = new float[n][];
+        var aws = actor0.CreateWorkspace();
+        var cws = critic0.CreateWorkspace();
+        var values = new float[n];
+        var outA = new float[actor0.Shape.OutputSize];
+        for (int m = 0; m < n; m++)
+        {
+            var gA = new float[actor0.ParameterCount];
+            var gC = new float[critic0.ParameterCount];
+            critic0.Forward(x[rows], cws, values);
+            float ret = values[m];
+            for (int t = rows - 1; t >= 0; t--)
+            {
+                ret = (float)(cost[m, t] * o.CostScale) + gamma * ret;
+                critic0.Forward(x[t], cws, values);
+                float adv = ret - values[m];
+                var dv = new float[n];
+                dv[m] = weight * (values[m] - ret);
+                critic0.Backward(cws, dv, gC);
+                actor0.Forward(x[t], aws, outA);
+                var da = new float[outA.Length];
+                ActorCriticLoss.Actor(outA.AsSpan(2 * m, 2), [pre[m, t]], [adv], [lo[m, t]], [hi[m, t]], 1, o.EntropyCoefficient,
+                    o.LogStdMin, o.LogStdMax, weight, da.AsSpan(2 * m, 2));
+                actor0.Backward(aws, da, gA);
+            }
+            for (int i = 0; i < gA.Length; i++)
+            {
+                actorGrad[i] += gA[i] / n;
+            }
+            for (int i = 0; i < gC.Length; i++)
+            {
+                criticGrad[i] += gC[i] / n;
+            }
+            ownActorGrad[m] = gA;
+        }
+        double lr = o.ActorLearningRate;
+        DenseNetwork fedActor = run.Coordinator.Actor;
+        var (so, sn) = actor0.SharedRange();
+        double worstShared = 0, stepSize = 0;
+        for (int i = so; i < so + sn; i++)
+        {
+            double expected = actor0.Parameters[i] - lr * actorGrad[i];
+            stepSize = Math.Max(stepSize, Math.Abs(lr * actorGrad[i]));
+            worstShared = Math.Max(worstShared, Math.Abs(fedActor.Parameters[i] - expected));
+        }
+        Assert.True(stepSize > 1e-6, "the centralized step moved nothing; the check would be empty");
+        Assert.True(worstShared <= 1e-3 * stepSize + 1e-7, $"shared actor parameters differ by {worstShared:E2} (step size {stepSize:E2})");
+        // Each household's columns: trained by that household alone, so they take its own loss's full step.
+        double worstColumns = 0, columnStep = 0;
+        for (int m = 0; m < n; m++)
+        {
+            var (co, cn) = actor0.FirstLayerBlockRange(m);
+            for (int i = co; i < co + cn; i++)
+            {
+                double expected = actor0.Parameters[i] - lr * ownActorGrad[m][i];
+                columnStep = Math.Max(columnStep, Math.Abs(lr * ownActorGrad[m][i]));
+                worstColumns = Math.Max(worstColumns, Math.Abs(fedActor.Parameters[i] - expected));
+            }
+        }
+        Assert.True(columnStep > 1e-7, "the columns' step is empty");
+        Assert.True(worstColumns <= 1e-3 * columnStep + 1e-7, $"first-layer columns differ by {worstColumns:E2} (step {columnStep:E2})");
+        // Critic, shared part.
+        double clr = o.CriticLearningRate, worstCritic = 0, criticStep = 0;
+        var (to, tn) = critic0.SharedRange();
+        for (int i = to; i < to + tn; i++)
+        {
+            double expected = critic0.Parameters[i] - clr * criticGrad[i];
+            criticStep = Math.Max(criticStep, Math.Abs(clr * criticGrad[i]));
+            worstCritic = Math.Max(worstCritic, Math.Abs(run.Coordinator.Critic.Parameters[i] - expected));
+        }
+        Assert.True(criticStep > 1e-6);
+        Assert.True(worstCritic <= 1e-3 * criticStep + 1e-7, $"shared critic parameters differ by {worstCritic:E2} (step {criticStep:E2})");
+    }
+
+    private static DenseNetwork Copy(DenseNetwork network)
+    {
+        var copy = new DenseNetwork(network.Shape);
+        copy.LoadParameters(network.Parameters);
+        return copy;
+    }
+}
