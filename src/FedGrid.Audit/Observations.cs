@@ -57,17 +57,15 @@ public static class AuditNames
 
 /// <summary>
 /// One feature of a household's input block x_m, as declared in the run's (public) network description:
-/// the value in kW is <c>OffsetKw + KwPerUnit · x</c>. Public features (price, time of day) are known to the coordinator.
+/// the value in kW is <c>OffsetKw + KwPerUnit · x</c>. Public features (price, time of day) are known to the coordinator;
+/// private features without a <see cref="Quantity"/> (e.g. a tank's charge) are unknowns the auditor does not score.
 /// </summary>
 /// <param name="Name">Feature name.</param>
-/// <param name="Quantity">The private quantity this feature encodes, or null for a public feature.</param>
-/// <param name="KwPerUnit">Scale, kW per input unit (ignored for public features).</param>
+/// <param name="Quantity">The private quantity this feature encodes, or null.</param>
+/// <param name="KwPerUnit">Scale, kW per input unit (only for features with a quantity).</param>
 /// <param name="OffsetKw">Offset, kW.</param>
-public sealed record InputFeature(string Name, Quantity? Quantity, double KwPerUnit = 1, double OffsetKw = 0)
-{
-    /// <summary>Whether the coordinator knows the feature's value anyway.</summary>
-    public bool IsPublic => Quantity is null;
-}
+/// <param name="IsPublic">Whether the coordinator knows the value anyway (its values are in <see cref="AttackerView.PublicFeatureValues"/>, NaN where unknown).</param>
+public sealed record InputFeature(string Name, Quantity? Quantity, double KwPerUnit = 1, double OffsetKw = 0, bool IsPublic = false);
 
 /// <summary>
 /// What the coordinator learnt about one household in one training round: the first-layer weights of the
@@ -115,8 +113,8 @@ public sealed record HouseholdView
     /// <summary>Index of its bus in <see cref="AttackerView.BusIds"/>.</summary>
     public required int Bus { get; init; }
 
-    /// <summary>Partial sums a_m(t), slots × H₁ row-major; NaN rows where the household did not send.</summary>
-    public double[]? PartialSums { get; init; }
+    /// <summary>Partial sums a_m(t) as received (float32), slots × H₁ row-major; NaN rows where the household did not send.</summary>
+    public float[]? PartialSums { get; init; }
 
     /// <summary>Training rounds in time order.</summary>
     public IReadOnlyList<RoundObservation> Rounds { get; init; } = [];

@@ -22,8 +22,8 @@ public sealed class AttackTests
         foreach (Quantity q in AuditNames.Quantities)
         {
             ChannelSummary s = Summary(card, Channel.PartialSums, PartialSumInversion.Name, q);
-            Assert.True(s.RelativeRmse < 1e-9, $"{q}: {s.RelativeRmse}");
-            Assert.True(s.ExposureRatio < 1e-8);
+            Assert.True(s.RelativeRmse < 1e-6, $"{q}: {s.RelativeRmse}"); // float32 partial sums on the wire
+            Assert.True(s.ExposureRatio < 1e-5);
             Assert.True(s.PriorRelativeRmse > 0.2, $"{q}: prior {s.PriorRelativeRmse}");
         }
         Identifiability id = results.Identifiability.First(i => i.Channel == Channel.PartialSums);
@@ -199,6 +199,6 @@ public sealed class AttackTests
     public void Without_priors_the_attacks_still_run_on_a_flat_prior()
     {
         var (_, _, card) = Audit(new SyntheticOptions { PlainWeights = true }, new AttackOptions { UsePriors = false });
-        Assert.True(Summary(card, Channel.PartialSums, PartialSumInversion.Name, Quantity.BaseLoad).RelativeRmse < 1e-9);
+        Assert.True(Summary(card, Channel.PartialSums, PartialSumInversion.Name, Quantity.BaseLoad).RelativeRmse < 1e-6);
     }
 }

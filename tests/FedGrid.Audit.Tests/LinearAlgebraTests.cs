@@ -174,3 +174,29 @@ internal static class Reference
         return dir is null ? throw new FileNotFoundException($"tests/reference/{name} not found above {AppContext.BaseDirectory}") : Path.Combine(dir, "tests", "reference", name);
     }
 }
+
+public sealed class LeadingSvdTests
+{
+    [Fact]
+    public void Leading_svd_of_a_low_rank_matrix_matches_the_full_svd()
+    {
+        // A = X Wᵀ with X 96 × 5 and W 40 × 5: rank 5; a sketch of 11 directions must reproduce σ1..σ5 and show σ6 ≈ 0.
+        var rng = new Random(3);
+        int m = 96, c = 40, r = 5;
+        double[] x = Enumerable.Range(0, m * r).Select(_ => rng.NextDouble()).ToArray();
+        double[] w = Enumerable.Range(0, c * r).Select(_ => rng.NextDouble() - 0.5).ToArray();
+        var a = new double[m * c];
+        for (int i = 0; i < m; i++)
+            for (int j = 0; j < c; j++)
+                for (int l = 0; l < r; l++) a[i * c + j] += x[i * r + l] * w[j * r + l];
+        SvdResult full = DenseLinearAlgebra.Svd(a, m, c);
+        SvdResult lead = DenseLinearAlgebra.LeadingSvd(a, m, c, r + 6, 1);
+        Assert.Equal(r + 6, lead.K);
+        for (int i = 0; i < r; i++) Assert.Equal(full.S[i], lead.S[i], 9);
+        Assert.True(lead.S[r] < 1e-10 * lead.S[0]);
+        // The leading left singular vectors span the same subspace: |⟨u_full, u_lead⟩| = 1 for the first.
+        double dot = 0;
+        for (int i = 0; i < m; i++) dot += full.U[i * full.K] * lead.U[i * lead.K];
+        Assert.Equal(1, Math.Abs(dot), 9);
+    }
+}

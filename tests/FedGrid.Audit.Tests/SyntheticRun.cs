@@ -40,7 +40,7 @@ internal sealed class SyntheticRun
         new("baseLoad", Quantity.BaseLoad, 2.0, 0),
         new("flexMinimum", Quantity.FlexMinimum, 4.0, 0),
         new("flexDesired", Quantity.FlexDesired, 4.0, 0),
-        new("hourOfDay", null),
+        new("hourOfDay", null, IsPublic: true),
     ];
 
     public static (double[][] Base, double[][] Min, double[][] Des, bool[][] Occ) Draw(int households, int days, ulong seed)
@@ -98,7 +98,7 @@ internal sealed class SyntheticRun
         }
         for (int m = 0; m < M; m++)
         {
-            var sums = new double[T * H];
+            var sums = new float[T * H];
             var rounds = new List<RoundObservation>();
             int roundCount = (T + o.SlotsPerRound - 1) / o.SlotsPerRound;
             uploadTarget[m] = new double[roundCount];
@@ -112,7 +112,7 @@ internal sealed class SyntheticRun
                     double[] x = Feature(baseKw[m][t], minKw[m][t], desKw[m][t], pub[t * n + 3]);
                     for (int k = 0; k < H; k++)
                     {
-                        if (o.PartialSumsAreNoise) { sums[t * H + k] = rng.NextDouble() * 2 - 1; continue; }
+                        if (o.PartialSumsAreNoise) { sums[t * H + k] = (float)(rng.NextDouble() * 2 - 1); continue; }
                         if (o.Float32)
                         {
                             float s = 0;
@@ -123,7 +123,7 @@ internal sealed class SyntheticRun
                         {
                             double s = 0;
                             for (int j = 0; j < n; j++) s += w[k * n + j] * x[j];
-                            sums[t * H + k] = s;
+                            sums[t * H + k] = (float)s; // float32 on the wire, as in the protocol
                         }
                     }
                 }

@@ -42,6 +42,7 @@ public static class PartialSumInversion
             var est = new Dictionary<Quantity, (double[] E, double[] V)>();
             foreach (Quantity q in AuditNames.Quantities)
                 if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
+            var a = new double[hN];
             var x0 = new double[n];
             var tau2 = new double[n];
             var x = new double[n];
@@ -69,8 +70,9 @@ public static class PartialSumInversion
                 int dof = 0, fitted = 0;
                 for (int t = t0; t < t1; t++)
                 {
-                    ReadOnlySpan<double> a = h.PartialSums.AsSpan(t * hN, hN);
-                    if (!double.IsFinite(a[0])) continue;
+                    ReadOnlySpan<float> af = h.PartialSums.AsSpan(t * hN, hN);
+                    for (int o = 0; o < hN; o++) a[o] = af[o];
+                    if (!float.IsFinite(af[0])) continue;
                     DenseLinearAlgebra.SolveLeastSquares(svd, a, x, 1e-10);
                     for (int o = 0; o < hN; o++)
                     {
@@ -91,8 +93,9 @@ public static class PartialSumInversion
                 maxNoiseRatio = Math.Max(maxNoiseRatio, Math.Sqrt(sigma2 / Math.Max(floor2, 1e-300)));
                 for (int t = t0; t < t1; t++)
                 {
-                    ReadOnlySpan<double> a = h.PartialSums.AsSpan(t * hN, hN);
-                    if (!double.IsFinite(a[0])) continue;
+                    ReadOnlySpan<float> af = h.PartialSums.AsSpan(t * hN, hN);
+                    for (int o = 0; o < hN; o++) a[o] = af[o];
+                    if (!float.IsFinite(af[0])) continue;
                     // Gaussian prior on x: the attacker's prior for private features, the known value for public ones.
                     for (int j = 0; j < n; j++)
                     {
@@ -103,7 +106,7 @@ public static class PartialSumInversion
                             double sd = AttackPrior.Std(view, options, m, q) / Math.Abs(f.KwPerUnit);
                             tau2[j] = sd * sd;
                         }
-                        else if (view.PublicFeatureValues is { } pv) { x0[j] = pv[t * n + j]; tau2[j] = 1e-12 * (1 + x0[j] * x0[j]); }
+                        else if (f.IsPublic && view.PublicFeatureValues is { } pv && double.IsFinite(pv[t * n + j])) { x0[j] = pv[t * n + j]; tau2[j] = 1e-12 * (1 + x0[j] * x0[j]); }
                         else { x0[j] = 0; tau2[j] = 1e12; }
                     }
                     // MAP: (WᵀW/σ² + diag(1/τ²)) x = Wᵀa/σ² + x₀/τ² (least squares when σ is float32 rounding).

@@ -55,11 +55,13 @@ public static class SubspaceAttack
             {
                 var slots = new List<int>();
                 for (int t = round.StartSlot; t < Math.Min(T, round.StartSlot + round.SlotCount); t++)
-                    if (double.IsFinite(h.PartialSums[t * hN])) slots.Add(t);
+                    if (float.IsFinite(h.PartialSums[t * hN])) slots.Add(t);
                 if (slots.Count == 0) continue;
                 var a = new double[slots.Count * hN];
-                for (int i = 0; i < slots.Count; i++) h.PartialSums.AsSpan(slots[i] * hN, hN).CopyTo(a.AsSpan(i * hN));
-                SvdResult svd = DenseLinearAlgebra.Svd(a, slots.Count, hN);
+                for (int i = 0; i < slots.Count; i++)
+                    for (int o = 0; o < hN; o++) a[i * hN + o] = h.PartialSums[slots[i] * hN + o];
+                // Sketch of n + 6 directions: the first n carry x_m, the rest show whether a spectral gap follows them.
+                SvdResult svd = DenseLinearAlgebra.LeadingSvd(a, slots.Count, hN, n + 6, 17 + m);
                 int r = Math.Min(n, svd.Rank(RankTolerance));
                 // Spectral-gap test: observations of the form X Wᵀ have at most n significant singular values; when the
                 // first one past the kept ones is not far below the last kept, the round does not fit the model (noise,

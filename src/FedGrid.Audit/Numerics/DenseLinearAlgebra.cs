@@ -298,4 +298,92 @@ public static class DenseLinearAlgebra
             b[i] = s / l[i * n + i];
         }
     }
+    /// <summary>
+    /// The leading <paramref name="k"/> singular triplets of a rows × cols matrix by a seeded randomised range finder
+    /// (Halko, Martinsson &amp; Tropp 2011, algorithm 4.1 with one power iteration): exact up to rounding when the
+    /// rank of A is below k, the usual case for partial sums of an n-feature block with k &gt; n.
+    /// </summary>
+    /// <param name="a">Row-major matrix.</param>
+    /// <param name="rows">Rows.</param>
+    /// <param name="cols">Columns.</param>
+    /// <param name="k">Sketch size (clamped to min(rows, cols)).</param>
+    /// <param name="seed">Seed of the Gaussian test matrix.</param>
+    /// <returns>U (rows × k), S (k), V (cols × k) of the sketch.</returns>
+    public static SvdResult LeadingSvd(ReadOnlySpan<double> a, int rows, int cols, int k, int seed)
+    {
+        k = Math.Min(k, Math.Min(rows, cols));
+        if (k >= Math.Min(rows, cols) - 2) return Svd(a, rows, cols);
+        var rng = new Random(seed);
+        var omega = new double[cols * k];
+        for (int i = 0; i < omega.Length; i++)
+        {
+            double u1 = 1 - rng.NextDouble(), u2 = rng.NextDouble();
+            omega[i] = Math.Sqrt(-2 * Math.Log(u1)) * Math.Cos(2 * Math.PI * u2);
+        }
+        var y = new double[rows * k];
+        MultiplyInto(a, rows, cols, omega, k, y);
+        Orthonormalise(y, rows, k);
+        // One power iteration: Y = A (Aᵀ Q).
+        var z = new double[cols * k];
+        for (int i = 0; i < rows; i++)
+            for (int c = 0; c < cols; c++)
+            {
+                double aic = a[i * cols + c];
+                if (aic == 0) continue;
+                for (int j = 0; j < k; j++) z[c * k + j] += aic * y[i * k + j];
+            }
+        Orthonormalise(z, cols, k);
+        Array.Clear(y);
+        MultiplyInto(a, rows, cols, z, k, y);
+        Orthonormalise(y, rows, k);
+        // B = Qᵀ A (k × cols); SVD of B; U = Q U_B.
+        var b = new double[k * cols];
+        for (int i = 0; i < rows; i++)
+            for (int j = 0; j < k; j++)
+            {
+                double q = y[i * k + j];
+                if (q == 0) continue;
+                for (int c = 0; c < cols; c++) b[j * cols + c] += q * a[i * cols + c];
+            }
+        SvdResult sb = Svd(b, k, cols);
+        var u = new double[rows * k];
+        for (int i = 0; i < rows; i++)
+            for (int j = 0; j < k; j++)
+            {
+                double s = 0;
+                for (int l = 0; l < k; l++) s += y[i * k + l] * sb.U[l * k + j];
+                u[i * k + j] = s;
+            }
+        return new SvdResult(rows, cols, u, sb.S, sb.V);
+    }
+
+    private static void MultiplyInto(ReadOnlySpan<double> a, int rows, int cols, double[] x, int k, double[] y)
+    {
+        for (int i = 0; i < rows; i++)
+            for (int c = 0; c < cols; c++)
+            {
+                double aic = a[i * cols + c];
+                if (aic == 0) continue;
+                for (int j = 0; j < k; j++) y[i * k + j] += aic * x[c * k + j];
+            }
+    }
+
+    // Modified Gram–Schmidt twice on the k columns of a rows × k row-major matrix (zero columns stay zero).
+    private static void Orthonormalise(double[] y, int rows, int k)
+    {
+        for (int pass = 0; pass < 2; pass++)
+            for (int j = 0; j < k; j++)
+            {
+                for (int l = 0; l < j; l++)
+                {
+                    double d = 0;
+                    for (int i = 0; i < rows; i++) d += y[i * k + l] * y[i * k + j];
+                    for (int i = 0; i < rows; i++) y[i * k + j] -= d * y[i * k + l];
+                }
+                double n2 = 0;
+                for (int i = 0; i < rows; i++) n2 += y[i * k + j] * y[i * k + j];
+                double n = Math.Sqrt(n2);
+                for (int i = 0; i < rows; i++) y[i * k + j] = n > 1e-300 ? y[i * k + j] / n : 0;
+            }
+    }
 }
