@@ -10,7 +10,7 @@ namespace FedGrid.Cli.Commands;
 
 /// <summary>Options of <c>fedgrid train</c>; null values take the defaults (or, with a scenario file, the file's).</summary>
 internal sealed record TrainOptions(string Mode, string Learner, string? ScenarioPath = null, string? Tariff = null, int? Days = null,
-    ulong? Seed = null, string? OutDir = null, bool Json = false);
+    ulong? Seed = null, string? OutDir = null, bool Json = false, FederatedTrainOptions? Federated = null);
 
 /// <summary>What a training mode hands back to the command for writing the run folder.</summary>
 /// <param name="Run">The learner's run.</param>
@@ -22,7 +22,8 @@ internal sealed record TrainOutcome(TrainingRun Run, TrainingSummary Summary, IR
     IReadOnlyList<KeyValuePair<string, string>> ExtraFiles);
 
 /// <summary>Everything a training mode gets from the command line.</summary>
-internal sealed record TrainContext(Scenario Scenario, LearnerKind Learner, ulong Seed, string Folder, TextWriter Progress);
+internal sealed record TrainContext(Scenario Scenario, LearnerKind Learner, ulong Seed, string Folder, TextWriter Progress,
+    FederatedTrainOptions? Federated = null);
 
 /// <summary>
 /// <c>fedgrid train --mode centralized --learner actor-critic|q-learning|double-q</c>: trains a learner on the
@@ -39,6 +40,7 @@ internal static class TrainCommand
     public static readonly IReadOnlyList<KeyValuePair<string, Func<TrainContext, TrainOutcome>>> Modes =
     [
         new("centralized", RunCentralized),
+        new("federated", TrainFederated.Run),
     ];
 
     public static Command Create()
@@ -51,12 +53,14 @@ internal static class TrainCommand
         var seed = new Option<ulong?>("--seed") { Description = $"seed of the households, their data and the learner (default {DefaultScenario.DefaultSeed})" };
         var outDir = new Option<string?>("--out") { Description = "run folder (default runs/train-<mode>-<learner>-<tariff>-s<seed>-<days>d)" };
         var json = new Option<bool>("--json") { Description = "print only the summary as JSON on stdout" };
+        var (fedOptions, readFed) = TrainFederated.CreateOptions();
         var cmd = new Command("train", "Train a demand-response learner on the default scenario (or a scenario file) with the safety projection every slot; compare it with no control and the daily optimum on the same days.")
         {
             mode, learner, scenario, tariff, days, seed, outDir, json,
         };
+        foreach (Option o in fedOptions) cmd.Options.Add(o);
         cmd.SetAction(parse => Run(new TrainOptions(parse.GetValue(mode)!, parse.GetValue(learner)!, parse.GetValue(scenario), parse.GetValue(tariff),
-            parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json)), Console.Out, Console.Error));
+            parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json), readFed(parse)), Console.Out, Console.Error));
         return cmd;
     }
 
@@ -69,6 +73,7 @@ internal static class TrainCommand
             ?? throw new UserInputException($"--learner: unknown learner '{options.Learner}'; use actor-critic, q-learning or double-q");
         if (options.Tariff is not null and not TimeOfUse and not RealTime)
             throw new UserInputException($"--tariff: unknown tariff '{options.Tariff}'; use {TimeOfUse} or {RealTime}");
+        TrainFederated.Validate(options);
         if (options.Days is < 1 or > 366)
             throw new UserInputException($"--days must be between 1 and 366, got {options.Days}");
         if (options.ScenarioPath is not null && options.Days is not null)
@@ -79,8 +84,8 @@ internal static class TrainCommand
         int days = scenario.SlotCount / SlotCalendar.SlotsPerDay;
         string tariffKey = scenario.Tariff is RealTimeTariff ? RealTime : TimeOfUse;
         string runName = options.ScenarioPath is null
-            ? $"train-{options.Mode}-{options.Learner}-{tariffKey}-s{seed}-{days}d"
-            : $"train-{options.Mode}-{options.Learner}-{Path.GetFileNameWithoutExtension(options.ScenarioPath)}";
+            ? $"train-{TrainFederated.ModeLabel(options)}-{options.Learner}-{tariffKey}-s{seed}-{days}d"
+            : $"train-{TrainFederated.ModeLabel(options)}-{options.Learner}-{Path.GetFileNameWithoutExtension(options.ScenarioPath)}";
         string dir = Path.GetFullPath(options.OutDir ?? Path.Combine("runs", runName));
         try
         {
@@ -91,7 +96,7 @@ internal static class TrainCommand
             throw new UserInputException($"--out: cannot create the run folder '{dir}': {e.Message}");
         }
 
-        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr));
+        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated));
         var files = new List<KeyValuePair<string, string>> { new("folder", dir), new("daily", "daily.csv"), new("plot", "convergence.png") };
         files.AddRange(outcome.ExtraFiles);
         byte[] json = RunFolder.Write(dir, outcome.Run.Days, outcome.Summary, files, DemoCommand.Cautions);
