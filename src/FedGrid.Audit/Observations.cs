@@ -91,6 +91,9 @@ public sealed record RoundObservation
 
     /// <summary>Local samples the upload was trained on, when the protocol declares it (0 = unknown).</summary>
     public int LocalSamples { get; init; }
+
+    /// <summary>First slot of the samples the upload was trained on (by the protocol's rule), or −1 for the round's own slots.</summary>
+    public int TrainingStartSlot { get; init; } = -1;
 }
 
 /// <summary>An uploaded change of one network's first layer for one household block.</summary>

@@ -38,7 +38,7 @@ public static class UploadRatioAttack
                 if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
             var x = new double[n];
             var spread = new double[n];
-            int usedRounds = 0, minRows = int.MaxValue, rejected = 0;
+            int usedRounds = 0, minRows = int.MaxValue, rejected = 0, signRounds = 0;
             foreach (RoundObservation round in h.Rounds)
             {
                 Array.Clear(x);
@@ -61,6 +61,23 @@ public static class UploadRatioAttack
                         for (int j = 0; j < n; j++) x[j] += db * u.WeightDelta[o * n + j];
                     }
                 if (!(bb > 0)) continue;
+                // A sign-like update (|ΔW_oj| = |Δb_o| nearly everywhere) is the first step of an adaptive optimiser such as Adam
+                // (Δ = −η g/(|g| + ε)): the ratio then carries only signs, not magnitudes, and is not used.
+                int nonzero = 0, signLike = 0;
+                foreach (FirstLayerUpdate u in round.Updates)
+                    for (int o = 0; o < u.Neurons; o++)
+                    {
+                        double db = Math.Abs(u.BiasDelta[o]);
+                        if (!(db > 1e-7 * scale)) continue;
+                        for (int j = 0; j < n; j++)
+                        {
+                            double dw = Math.Abs(u.WeightDelta[o * n + j]);
+                            if (dw == 0) continue;
+                            nonzero++;
+                            if (Math.Abs(dw - db) <= 1e-2 * db) signLike++;
+                        }
+                    }
+                if (nonzero > 0 && signLike > 0.8 * nonzero) { signRounds++; continue; }
                 usedRounds++;
                 minRows = Math.Min(minRows, rows);
                 for (int j = 0; j < n; j++) x[j] /= bb;
@@ -92,7 +109,9 @@ public static class UploadRatioAttack
                     // Posterior mean with the attacker's prior: an inconsistent upload (large spread) leans on the prior.
                     double sp = AttackPrior.Std(view, options, m, q);
                     double[] prior = AttackPrior.Mean(view, options, m, q);
-                    for (int t = round.StartSlot; t < Math.Min(T, round.StartSlot + round.SlotCount); t++)
+                    int first = round.TrainingStartSlot >= 0 ? round.TrainingStartSlot : round.StartSlot;
+                    int len = round.TrainingStartSlot >= 0 && round.LocalSamples > 0 ? round.LocalSamples : round.SlotCount;
+                    for (int t = Math.Max(0, first); t < Math.Min(T, first + len); t++)
                     {
                         double wp = 1 / (sp * sp), wa = 1 / v;
                         e.E[t] = (wa * kw + wp * prior[t]) / (wa + wp);
@@ -102,9 +121,10 @@ public static class UploadRatioAttack
             }
             foreach (var (q, e) in est) reconstructions.Add(new Reconstruction(Channel.Uploads, Name, q, m, e.E, e.V));
             identifiability.Add(new Identifiability(m, Channel.Uploads, Name, usedRounds > 0 ? 1 : 0, n, double.NaN, double.NaN,
-                usedRounds == 0 ? "no round had a usable first-layer update (zero bias change, or updates that look like noise)" + (rejected > 0 ? $"; {rejected} round(s) rejected as noise" : "") :
+                usedRounds == 0 ? "no round had a usable first-layer update (zero bias change, noise-like or sign-like updates)" + (rejected > 0 ? $"; {rejected} round(s) rejected as noise" : "") + (signRounds > 0 ? $"; {signRounds} round(s) sign-like (adaptive optimiser)" : "") :
                 $"{usedRounds} round(s) with first-layer updates, at least {minRows} informative row(s) each; exact for one local sample, a weighted mean of the round's samples otherwise"
-                + (rejected > 0 ? $"; {rejected} round(s) whose updates are not of the form Δb·x (noise) keep the prior" : "")));
+                + (rejected > 0 ? $"; {rejected} round(s) whose updates are not of the form Δb·x (noise) keep the prior" : "")
+                + (signRounds > 0 ? $"; {signRounds} round(s) with sign-like updates (an adaptive optimiser's first step) keep the prior" : "")));
         }
         if (attacked == 0)
             notes.Add("uploads: no household uploaded its first-layer block (e.g. private columns), so the weight/bias ratio attack had nothing to work on");

@@ -36,7 +36,7 @@ public sealed record AuditRun(AttackerView View, AuditContext Context, GroundTru
 /// the feeder; fixed loads and losses are left out — the meter attack fits a constant and a quadratic term for them).
 /// The simulation record is also the ground truth, handed only to the scorer.
 /// </summary>
-public static class RunFolder
+public static class RunFolderReader
 {
     /// <summary>Transcript file name in a run folder.</summary>
     public const string TranscriptName = "transcript" + TranscriptFormat.Extension;
@@ -307,6 +307,9 @@ public static class RunFolder
                     {
                         StartSlot = r * d.StepsPerRound, SlotCount = Math.Min(d.StepsPerRound, T - r * d.StepsPerRound), BroadcastWeights = w,
                         Updates = u.U ?? [], LocalSamples = u.Samples,
+                        // The household trains on rows [0, Count − 1) of its buffer, whose row 0 is the previous round's last step:
+                        // the samples are the slots just before the round's last one.
+                        TrainingStartSlot = u.U is null ? -1 : Math.Max(0, r * d.StepsPerRound + Math.Min(d.StepsPerRound, T - r * d.StepsPerRound) - 1 - u.Samples),
                     });
                 }
             }
