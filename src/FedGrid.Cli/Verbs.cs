@@ -11,5 +11,6 @@ internal static class Verbs
         yield return Commands.DemoCommand.Create();
         yield return Commands.TrainCommand.Create();
         yield return Commands.ProjectCommand.Create();
+        yield return Commands.AuditCommand.Create();
     }
 }
