@@ -16,6 +16,9 @@ public static class UploadRatioAttack
     /// <summary>A round whose fit energy per feature is below this multiple of the spread per degree of freedom is rejected.</summary>
     public const double ModelCheckRatio = 10;
 
+    /// <summary>Estimates further than this many prior spreads from the prior mean are rejected as implausible.</summary>
+    public const double PlausibleSpread = 5;
+
     /// <summary>Runs the attack on every household with first-layer uploads.</summary>
     /// <param name="view">The attacker's view.</param>
     /// <param name="options">Side information in use.</param>
@@ -38,7 +41,7 @@ public static class UploadRatioAttack
                 if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
             var x = new double[n];
             var spread = new double[n];
-            int usedRounds = 0, minRows = int.MaxValue, rejected = 0, signRounds = 0;
+            int usedRounds = 0, minRows = int.MaxValue, rejected = 0, signRounds = 0, implausible = 0;
             foreach (RoundObservation round in h.Rounds)
             {
                 Array.Clear(x);
@@ -109,6 +112,13 @@ public static class UploadRatioAttack
                     // Posterior mean with the attacker's prior: an inconsistent upload (large spread) leans on the prior.
                     double sp = AttackPrior.Std(view, options, m, q);
                     double[] prior = AttackPrior.Mean(view, options, m, q);
+                    // Plausibility (several samples only, whose weighted mean must lie near the round's prior mean): an estimate more than
+                    // PlausibleSpread prior spreads from it, or negative, means the update is not a gradient step on the features (several
+                    // adaptive-optimiser steps mix them); keep the prior. A single sample may be a spike and is not checked.
+                    double pm = 0;
+                    for (int t = round.StartSlot; t < Math.Min(T, round.StartSlot + round.SlotCount); t++) pm += prior[t];
+                    pm /= Math.Max(1, Math.Min(T, round.StartSlot + round.SlotCount) - round.StartSlot);
+                    if (options.UsePriors && round.LocalSamples != 1 && (kw < -sp || Math.Abs(kw - pm) > PlausibleSpread * sp)) { implausible++; continue; }
                     int first = round.TrainingStartSlot >= 0 ? round.TrainingStartSlot : round.StartSlot;
                     int len = round.TrainingStartSlot >= 0 && round.LocalSamples > 0 ? round.LocalSamples : round.SlotCount;
                     for (int t = Math.Max(0, first); t < Math.Min(T, first + len); t++)
@@ -124,7 +134,8 @@ public static class UploadRatioAttack
                 usedRounds == 0 ? "no round had a usable first-layer update (zero bias change, noise-like or sign-like updates)" + (rejected > 0 ? $"; {rejected} round(s) rejected as noise" : "") + (signRounds > 0 ? $"; {signRounds} round(s) sign-like (adaptive optimiser)" : "") :
                 $"{usedRounds} round(s) with first-layer updates, at least {minRows} informative row(s) each; exact for one local sample, a weighted mean of the round's samples otherwise"
                 + (rejected > 0 ? $"; {rejected} round(s) whose updates are not of the form Δb·x (noise) keep the prior" : "")
-                + (signRounds > 0 ? $"; {signRounds} round(s) with sign-like updates (an adaptive optimiser's first step) keep the prior" : "")));
+                + (signRounds > 0 ? $"; {signRounds} round(s) with sign-like updates (an adaptive optimiser's first step) keep the prior" : "")
+                + (implausible > 0 ? $"; {implausible} round-feature estimate(s) implausible against the prior (not a plain gradient step) keep the prior" : "")));
         }
         if (attacked == 0)
             notes.Add("uploads: no household uploaded its first-layer block (e.g. private columns), so the weight/bias ratio attack had nothing to work on");
