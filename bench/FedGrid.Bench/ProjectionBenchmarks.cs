@@ -14,6 +14,7 @@ namespace FedGrid.Bench;
 /// slots alternate between two proposals so that warm starts start from a different slot's solution.
 /// </summary>
 [MemoryDiagnoser]
+[MedianColumn]
 public class ProjectionBenchmarks
 {
     private SetpointProjector _projector = null!;

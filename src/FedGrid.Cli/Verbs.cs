@@ -10,6 +10,7 @@ internal static class Verbs
         yield return Commands.FlowCommand.Create();
         yield return Commands.DemoCommand.Create();
         yield return Commands.TrainCommand.Create();
+        yield return Commands.OptimumCommand.Create();
         yield return Commands.ProjectCommand.Create();
         yield return Commands.AuditCommand.Create();
     }

@@ -131,7 +131,9 @@ internal static class TrainCommand
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         c.Progress.WriteLine($"train: no control on the same {days} days");
         var noControl = NoControlBaseline.Run(c.Scenario);
-        IReadOnlyList<double>? oracle = null;
+        int window = Math.Min(TrainingSummary.FinalWindowDays, days);
+        c.Progress.WriteLine($"train: perfect-foresight optimum of the last {window} days (from no control's state at their first midnight)");
+        IReadOnlyList<double> oracle = OracleBaseline.LastDays(c.Scenario, window, k => c.Progress.WriteLine($"train: optimum: day {k}/{window}"));
         var trainer = new CentralizedTrainer(c.Scenario, new TrainingOptions(c.Learner, c.Seed));
         string name = LearnerNames.Of(c.Learner);
         TrainingRun run = trainer.Train(d => c.Progress.WriteLine(

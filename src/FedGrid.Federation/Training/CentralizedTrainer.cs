@@ -52,18 +52,21 @@ public sealed record TrainingOptions(LearnerKind Learner, ulong Seed = 1, ActorC
 /// <summary>The settings this project tuned on the default scenario (60 days); see the README "Training" section.</summary>
 public static class TrainingDefaults
 {
-    /// <summary>Actor-critic: [64, 64] tanh, γ = 0.97, 16-step rollouts, actor 1e-3, critic 3e-3, entropy 1e-3, cost scale 2.</summary>
+    /// <summary>
+    /// Actor-critic: [64, 64] tanh, γ = 0.9, 4-step rollouts, actor 3e-4, critic 1e-3, entropy 1e-3, cost scale 2,
+    /// log σ in [−3, 1] (initial σ = e^−1 ≈ 0.37 before the squash).
+    /// </summary>
     public static ActorCriticOptions ActorCritic { get; } = new()
     {
         HiddenSizes = [64, 64],
-        Gamma = 0.97,
-        RolloutSteps = 16,
-        ActorLearningRate = 1e-3,
-        CriticLearningRate = 3e-3,
+        Gamma = 0.9,
+        RolloutSteps = 4,
+        ActorLearningRate = 3e-4,
+        CriticLearningRate = 1e-3,
         EntropyCoefficient = 1e-3,
         CostScale = 2.0,
         LogStdMin = -3f,
-        LogStdMax = 0.5f,
+        LogStdMax = 1f,
     };
 
     /// <summary>Tabular: γ = 0.95, ε from 1 to 0.05 over the first third of the budget, α = 1/(1+n)^0.6 per visit count.</summary>

@@ -77,7 +77,7 @@ public sealed record TrainingSummary(string Mode, string Learner, string Tariff,
     /// <param name="mode">Mode name.</param>
     /// <param name="run">The learner's run.</param>
     /// <param name="noControl">No control on the same days.</param>
-    /// <param name="oracleDailyCost">The optimum's cost per day on the same days, or null.</param>
+    /// <param name="oracleDailyCost">The optimum's cost per day on the same days (NaN where not computed; the final window's days are needed), or null.</param>
     /// <param name="tariff">Tariff name.</param>
     /// <param name="scenario">Scenario name.</param>
     /// <param name="households">Households.</param>
@@ -100,7 +100,9 @@ public sealed record TrainingSummary(string Mode, string Learner, string Tariff,
             return s / window;
         }
         double final = Mean(d => run.Days[d].Cost), nc = Mean(d => noControl[d].Cost);
-        double? oracle = oracleDailyCost is null ? null : Mean(d => oracleDailyCost[d]);
+        double? oracle = null;
+        if (oracleDailyCost is not null && Enumerable.Range(from, window).All(d => double.IsFinite(oracleDailyCost[d])))
+            oracle = Mean(d => oracleDailyCost[d]);
         double peak = Mean(d => run.Days[d].PeakKw), ncPeak = Mean(d => noControl[d].PeakKw);
         var learnerCosts = run.Days.Select(d => d.Cost).ToArray();
         var ncCosts = noControl.Select(d => d.Cost).ToArray();

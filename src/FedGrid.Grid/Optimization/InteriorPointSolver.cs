@@ -38,6 +38,13 @@ namespace FedGrid.Grid.Optimization;
 /// of size m costs m²/2 entries. No memory is allocated by <see cref="Solve"/>.
 /// </para>
 /// <para>
+/// <b>Scaling of the data.</b> The iteration works on (cP, cq) with c = 1/max(1, max|P|, ‖q‖∞), which
+/// leaves x unchanged and scales the multipliers by c (undone on output). When the iteration stops on
+/// numerical trouble or the iteration limit, the last iterate is tested once more as an infeasibility
+/// certificate at <see cref="SolverOptions.ReducedInfeasibilityTolerance"/>: on infeasible problems τ → 0
+/// and the directions lose accuracy before the strict certificate test passes.
+/// </para>
+/// <para>
 /// <b>Initial point.</b> As in CVXOPT's coneqp: solve the KKT system with W = I and right-hand side
 /// [−q; c], set s = −z on the cone rows, and shift s and z into the interior by (1 + α)e where α is
 /// the most negative eigenvalue, if needed; τ = κ = 1. With <see cref="SolverOptions.WarmStart"/>
@@ -108,8 +115,6 @@ public sealed class InteriorPointSolver
 
     /// <summary>The program this solver was built for (its values are re-read at every solve).</summary>
     public ConeProgram Program => _pg;
-
-    internal static bool DebugTrace = Environment.GetEnvironmentVariable("FEDGRID_IPM_TRACE") == "1";
 
     /// <summary>The settings.</summary>
     public SolverOptions Options => _o;
@@ -200,7 +205,6 @@ public sealed class InteriorPointSolver
                 }
             }
             if (iter >= _o.MaxIterations) break;
-            if (DebugTrace) Console.Error.WriteLine($"it {iter} pres {pres:E2} dres {dres:E2} pobj {pobj:E6} dobj {dobj:E6} tau {tau:E2} kap {kappa:E2} cz {cz:E2} mtz {InfNorm(_mtz):E2}");
 
             // Scaling, KKT factorisation, and the fixed right-hand side [−q; c].
             if (!Scaling())
@@ -224,10 +228,10 @@ public sealed class InteriorPointSolver
             for (int j = 0; j < n; j++) _qp2[j] = q[j] + 2 * _px[j] / tau;
             double xiPxi = xPx / (tau * tau);
 
-            // Predictor: d_s = −λ∘λ, d_κ = −τκ, full residual.
+            // Predictor: d_s = −λ∘λ, d_κ = −τκ, full residual (unrefined: it only sets σ and the corrector term).
             ConeProduct(_lambda, _lambda, _dS);
             for (int i = 0; i < _mg; i++) _dS[i] = -_dS[i];
-            if (!Direction(1.0, r3, -tau * kappa, xiPxi, _dxa, _dsa, _dza, out double dtauA, out double dkapA))
+            if (!Direction(1.0, r3, -tau * kappa, xiPxi, _dxa, _dsa, _dza, out double dtauA, out double dkapA, refinementSteps: 0))
             {
                 status = SolverStatus.NumericalTrouble;
                 break;
@@ -243,13 +247,12 @@ public sealed class InteriorPointSolver
             for (int i = 0; i < _mg; i++) _dS[i] = -_dS[i] - _wu[i];
             AddIdentity(_dS, sigma * mu);
             double dkap = -tau * kappa - dtauA * dkapA + sigma * mu;
-            if (!Direction(1 - sigma, r3, dkap, xiPxi, _dx, _ds, _dz, out double dtau, out double dkappa))
+            if (!Direction(1 - sigma, r3, dkap, xiPxi, _dx, _ds, _dz, out double dtau, out double dkappa, _o.RefinementSteps))
             {
                 status = SolverStatus.NumericalTrouble;
                 break;
             }
             double alpha = Math.Min(1, _o.StepFraction * StepLength(_ds, _dz, dtau, dkappa));
-            if (DebugTrace) Console.Error.WriteLine($"   alphaA {alphaA:E2} sigma {sigma:E2} alpha {alpha:E2} mu {mu:E2} dtau {dtau:E2} regs {_kkt.RegularisedPivots}");
             if (!(alpha > 1e-10))
             {
                 if (++stalls >= 3)
@@ -370,7 +373,7 @@ public sealed class InteriorPointSolver
     /// Solves the linearised embedding for residual weight η and complementarity targets d_s (in
     /// <see cref="_dS"/>) and d_κ; writes Δx, Δs, Δz, Δτ, Δκ.
     /// </summary>
-    private bool Direction(double etaW, double r3, double dkap, double xiPxi, double[] dx, double[] ds, double[] dz, out double dtau, out double dkappa)
+    private bool Direction(double etaW, double r3, double dkap, double xiPxi, double[] dx, double[] ds, double[] dz, out double dtau, out double dkappa, int refinementSteps)
     {
         int n = _n, p = _p, mg = _mg;
         double tau = _tau, kappa = _kappa;
@@ -381,7 +384,7 @@ public sealed class InteriorPointSolver
         for (int j = 0; j < n; j++) _rhs[j] = -etaW * _r1[j];
         for (int i = 0; i < p; i++) _rhs[n + i] = -etaW * _r2[i];
         for (int i = 0; i < mg; i++) _rhs[n + p + i] = -etaW * _r2[p + i] - _wu[i];
-        _kkt.Solve(_rhs, _sol, _o.RefinementSteps);
+        _kkt.Solve(_rhs, _sol, refinementSteps);
         Array.Copy(_sol, _x1, n);
         Array.Copy(_sol, n, _z1, 0, _m);
         double num = -etaW * r3 - dkap / tau - Dot(_qp2, _x1) - Dot(b, _z1.AsSpan(0, p)) - Dot(h, _z1.AsSpan(p));

@@ -64,14 +64,13 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
     // Powers scale by k, impedances by 1/k, squared currents by k², squared voltages not at all — the
     // equations are unchanged, and the numbers stay of order one for distribution feeders.
     private const double InternalBaseMva = 1.0;
-    private readonly double _k, _puPerKw;
+    private readonly double _k;
 
     public BranchFlowModel(RadialNetwork net, ConeProgramBuilder b, IReadOnlyList<UnitInjection>[] unitsAtBus, bool withLosses, double lossWeightPerKw)
     {
         _net = net;
         _losses = withLosses;
         _k = net.BaseMva / InternalBaseMva;
-        _puPerKw = 1 / (1000 * InternalBaseMva);
         double kb = _k;
         int n = net.BusCount, slack = net.SlackIndex;
         _pv = new Variable[n]; _qv = new Variable[n]; _lv = new Variable[n]; _vv = new Variable[n];
@@ -125,8 +124,8 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
             }
             foreach (var u in unitsAtBus[j])
             {
-                pe.Add(u.Setpoint, -_puPerKw);
-                qe.Add(u.Setpoint, -_puPerKw * u.TanPhi);
+                pe.Add(u.Setpoint, -u.PPuPerKw * kb);
+                qe.Add(u.Setpoint, -u.QPuPerKw * kb);
             }
             _pBal[j] = b.AddEquality(pe, 0);
             _qBal[j] = b.AddEquality(qe, 0);
@@ -146,25 +145,25 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
         // Substation import: Σ_{children of slack} P + Σ_{units at slack} c p ≤ limit − p_base,slack
         var imp = new LinearExpression();
         foreach (int k in children[slack]) imp.Add(_pv[k]);
-        foreach (var u in unitsAtBus[slack]) imp.Add(u.Setpoint, _puPerKw);
+        foreach (var u in unitsAtBus[slack]) imp.Add(u.Setpoint, u.PPuPerKw * kb);
         _importRow = b.AddLessOrEqual(imp, 1);
         _rowNames[_importRow] = ("substation import limit", slack);
     }
 
-    public void SetBaseLoad(ConeProgram program, ReadOnlySpan<double> baseKw, ReadOnlySpan<double> baseKvar)
+    public void SetBaseLoad(ConeProgram program, ReadOnlySpan<double> basePPu, ReadOnlySpan<double> baseQPu)
     {
         var bv = program.B;
         for (int j = 0; j < _net.BusCount; j++)
         {
             if (_pBal[j] < 0) continue;
-            bv[_pBal[j]] = baseKw[j] * _puPerKw;
-            bv[_qBal[j]] = baseKvar[j] * _puPerKw;
+            bv[_pBal[j]] = basePPu[j] * _k;
+            bv[_qBal[j]] = baseQPu[j] * _k;
         }
-        _baseSlackP = baseKw[_net.SlackIndex] * _puPerKw;
+        _baseSlackP = basePPu[_net.SlackIndex] * _k;
         program.H[_importRow] = _importLimitPu - _baseSlackP;
     }
 
-    public void SetLimits(ConeProgram program, FeederLimits limits)
+    public void SetLimits(ConeProgram program, FeederLimits limits, ReadOnlySpan<double> basePPu)
     {
         var h = program.H;
         var net = _net;
@@ -179,6 +178,7 @@ internal sealed class BranchFlowModel : IFormulatedFeeder
             else h[program.SecondOrderRowStart(_curCone[j])] = imax * limits.VMinPu[net.Parent[j]];
         }
         _importLimitPu = limits.ImportLimitPu * k;
+        _baseSlackP = basePPu[net.SlackIndex] * k;
         h[_importRow] = _importLimitPu - _baseSlackP;
         program.B[_slackRow] = net.SlackVoltagePu * net.SlackVoltagePu;
     }

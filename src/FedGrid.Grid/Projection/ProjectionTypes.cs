@@ -67,7 +67,7 @@ public enum ProjectionStatus
 /// <param name="MaxAttempts">Solves at most per projection (the first plus tightened re-solves).</param>
 /// <param name="TighteningMarginPu">Extra margin added to each tightening beyond the violation found.</param>
 /// <param name="LossWeightPerKw">Weight of the line losses (kW) in the cone objective; a small positive weight makes the cone relaxation exact (Farivar &amp; Low 2013) without moving the setpoints noticeably.</param>
-/// <param name="Solver">Interior-point settings.</param>
+/// <param name="Solver">Interior-point settings; null means <see cref="DefaultSolver"/>.</param>
 public sealed record ProjectionOptions(
     double VerificationTolerancePu = 1e-6,
     int MaxAttempts = 4,
@@ -77,6 +77,14 @@ public sealed record ProjectionOptions(
 {
     /// <summary>The default settings.</summary>
     public static ProjectionOptions Default { get; } = new();
+
+    /// <summary>
+    /// The solver settings used when none are given: the defaults with warm start on. Slot after slot
+    /// the previous slot's solution is a good start: measured on the Baran &amp; Wu feeder with
+    /// proposals alternating between two slots, warm start halves the iterations (16.5 → 8.5 at
+    /// 33 buses, 24 → 13.5 at 1650 buses).
+    /// </summary>
+    public static SolverOptions DefaultSolver { get; } = new(WarmStart: true);
 }
 
 /// <summary>
@@ -159,8 +167,10 @@ public sealed class ProjectionResult
 /// </summary>
 public sealed class FeederLimits
 {
-    internal FeederLimits(RadialNetwork net)
+    /// <summary>The limits of <paramref name="net"/> as the feeder states them (a formulation used outside the projector starts from these).</summary>
+    public FeederLimits(RadialNetwork net)
     {
+        ArgumentNullException.ThrowIfNull(net);
         VMinPu = (double[])net.VMinPu.Clone();
         VMaxPu = (double[])net.VMaxPu.Clone();
         CurrentLimitPu = (double[])net.CurrentLimitPu.Clone();
@@ -188,10 +198,11 @@ public sealed class FeederLimits
     }
 }
 
-/// <summary>A flexible unit's setpoint variable at a bus: it draws Setpoint kW and TanPhi × Setpoint kvar.</summary>
-/// <param name="Setpoint">The unit's setpoint variable, in kW.</param>
-/// <param name="TanPhi">Reactive power per unit of real power.</param>
-public readonly record struct UnitInjection(Variable Setpoint, double TanPhi);
+/// <summary>A flexible unit's setpoint variable and what one kW of it adds at its bus, per unit of the feeder's power base.</summary>
+/// <param name="Setpoint">The unit's setpoint variable (kW).</param>
+/// <param name="PPuPerKw">Real power per kW, pu (1 / (1000 × base MVA)).</param>
+/// <param name="QPuPerKw">Reactive power per kW, pu (tan φ times <paramref name="PPuPerKw"/>).</param>
+public readonly record struct UnitInjection(Variable Setpoint, double PPuPerKw, double QPuPerKw);
 
 /// <summary>
 /// A model of the feeder's physics that the projection problem is written against: given the
@@ -214,11 +225,11 @@ public interface IFeederFormulation
 /// <summary>A formulation's constraints inside one built <see cref="ConeProgram"/>: rewritable data, and recovery of the physical state.</summary>
 public interface IFormulatedFeeder
 {
-    /// <summary>Writes the base loads (kW, kvar per bus) into the program's right-hand sides.</summary>
-    void SetBaseLoad(ConeProgram program, ReadOnlySpan<double> baseKw, ReadOnlySpan<double> baseKvar);
+    /// <summary>Writes the base loads (per unit of the feeder's power base, per bus) into the program's right-hand sides.</summary>
+    void SetBaseLoad(ConeProgram program, ReadOnlySpan<double> basePPu, ReadOnlySpan<double> baseQPu);
 
-    /// <summary>Writes the limits (per unit of the feeder's bases) into the program's right-hand sides.</summary>
-    void SetLimits(ConeProgram program, FeederLimits limits);
+    /// <summary>Writes the limits (per unit of the feeder's bases) into the program's right-hand sides; the slack bus's base load enters the import limit.</summary>
+    void SetLimits(ConeProgram program, FeederLimits limits, ReadOnlySpan<double> basePPu);
 
     /// <summary>Recovers bus voltages (pu) and the relaxation gap per line (pu² on the feeder's power base) from a solution x.</summary>
     void Recover(ReadOnlySpan<double> x, Span<double> voltagePu, Span<double> relaxationGapPu);

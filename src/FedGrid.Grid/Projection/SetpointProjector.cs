@@ -76,17 +76,18 @@ public sealed class SetpointProjector
         _upRow = new int[m];
         var atBus = new List<UnitInjection>[n];
         for (int i = 0; i < n; i++) atBus[i] = [];
+        double puPerKw = _net.ToPu(1);
         for (int u = 0; u < m; u++)
         {
             _unitVar[u] = b.AddVariable(_units[u].Id, 0, 1);
             _lowRow[u] = b.LowerBoundRow(_unitVar[u]);
             _upRow[u] = b.UpperBoundRow(_unitVar[u]);
             b.AddObjectiveSquaredDistance(_unitVar[u], _weight[u], 0);
-            atBus[_unitBus[u]].Add(new UnitInjection(_unitVar[u], _tanPhi[u]));
+            atBus[_unitBus[u]].Add(new UnitInjection(_unitVar[u], puPerKw, puPerKw * _tanPhi[u]));
         }
         _model = Formulation.Formulate(_net, b, atBus, _options.LossWeightPerKw);
         _program = b.Build();
-        _solver = new InteriorPointSolver(_program, _options.Solver);
+        _solver = new InteriorPointSolver(_program, _options.Solver ?? ProjectionOptions.DefaultSolver);
         _flow = new AcPowerFlow(_net);
         _limits = new FeederLimits(_net);
         _baseP = new double[n];
@@ -215,7 +216,7 @@ public sealed class SetpointProjector
                 return;
             }
             if (attempt < _options.MaxAttempts && !Tighten(result.AcFlow)) break;
-            _model.SetLimits(_program, _limits);
+            _model.SetLimits(_program, _limits, _baseP);
         }
         result.AcVerified = false;
         result.Violations = result.AcFlow.FindViolations(_feeder, _options.VerificationTolerancePu);
@@ -260,8 +261,8 @@ public sealed class SetpointProjector
             h[_upRow[u]] = input.MaxKw[u];
         }
         _program.ObjectiveConstant = constant;
-        _model.SetBaseLoad(_program, input.BaseLoadKw, input.BaseLoadKvar);
-        _model.SetLimits(_program, _limits);
+        _model.SetBaseLoad(_program, _baseP, _baseQ);
+        _model.SetLimits(_program, _limits, _baseP);
     }
 
     /// <summary>AC power flow at the given setpoints; true when it converged and no limit is broken beyond tolerance.</summary>

@@ -232,15 +232,44 @@ public sealed class DemandResponseEnvironment
     /// </summary>
     /// <exception cref="ArgumentException">Wrong number of setpoints, or a setpoint outside its household's [minimum, desired] box (the message names it).</exception>
     /// <exception cref="InvalidOperationException">The horizon is over.</exception>
-    public void Step(ReadOnlySpan<double> setpointsKw, StepResult result)
+    public void Step(ReadOnlySpan<double> setpointsKw, StepResult result) => StepCore(setpointsKw, default, result);
+
+    /// <summary>
+    /// Simulates the current slot with one power per appliance instead of one household setpoint split by
+    /// <see cref="SplitRule"/>: <paramref name="applianceKw"/>[3·m + k] is household m's power for
+    /// <see cref="ApplianceKind"/> k, each inside that appliance's own [minimum, desired] box
+    /// (<see cref="ApplianceBounds"/>). Same physics, bills and discomfort as <see cref="Step"/>; used to replay
+    /// a schedule computed per appliance (the perfect-foresight optimum). Allocates nothing.
+    /// </summary>
+    /// <exception cref="ArgumentException">Wrong length, or a power outside its appliance's box (the message names it).</exception>
+    /// <exception cref="InvalidOperationException">The horizon is over.</exception>
+    public void StepAppliances(ReadOnlySpan<double> applianceKw, StepResult result)
+    {
+        if (applianceKw.Length != _n * Kinds)
+            throw new ArgumentException($"expected {_n * Kinds} appliance powers (3 per household), got {applianceKw.Length}", nameof(applianceKw));
+        if (!Done)
+            for (int j = 0; j < applianceKw.Length; j++)
+            {
+                double a = applianceKw[j], tol = 1e-9 * Math.Max(1, _appDes[j]);
+                if (!(a >= _appMin[j] - tol && a <= _appDes[j] + tol))
+                    throw new ArgumentException(
+                        $"power {a} kW of {(ApplianceKind)(j % Kinds)} appliance of household '{_scenario.Households[j / Kinds].Id}' is outside its box [{_appMin[j]}, {_appDes[j]}] kW at slot {_slot}",
+                        nameof(applianceKw));
+            }
+        Span<double> totals = stackalloc double[0];
+        StepCore(totals, applianceKw, result);
+    }
+
+    private void StepCore(ReadOnlySpan<double> setpointsKw, ReadOnlySpan<double> applianceKw, StepResult result)
     {
         ArgumentNullException.ThrowIfNull(result);
+        bool perAppliance = applianceKw.Length > 0;
         if (Done) throw new InvalidOperationException($"the horizon of {_slots} slots is over; call Reset()");
-        if (setpointsKw.Length != _n)
+        if (!perAppliance && setpointsKw.Length != _n)
             throw new ArgumentException($"expected {_n} setpoints (one per household), got {setpointsKw.Length}", nameof(setpointsKw));
         if (result.BillDollars.Length != _n || result.PowerFlow.VoltagePu.Length != _busP.Length)
             throw new ArgumentException("result buffer was sized for another environment; use CreateResult()", nameof(result));
-        for (int i = 0; i < _n; i++)
+        for (int i = 0; i < _n && !perAppliance; i++)
         {
             double s = setpointsKw[i];
             double tol = 1e-9 * Math.Max(1, _des[i]);
@@ -259,8 +288,21 @@ public sealed class DemandResponseEnvironment
         Span<double> share = stackalloc double[Kinds];
         for (int i = 0; i < _n; i++)
         {
-            double s = Math.Clamp(setpointsKw[i], _min[i], _des[i]);
-            Split(i, s, share);
+            double s;
+            if (perAppliance)
+            {
+                s = 0;
+                for (int k = 0; k < Kinds; k++)
+                {
+                    share[k] = Math.Clamp(applianceKw[i * Kinds + k], _appMin[i * Kinds + k], _appDes[i * Kinds + k]);
+                    s += share[k];
+                }
+            }
+            else
+            {
+                s = Math.Clamp(setpointsKw[i], _min[i], _des[i]);
+                Split(i, s, share);
+            }
             HouseholdTrace tr = _scenario.Traces[i];
             double discomfort = 0;
             if (_ev[i] is { } ev && _evStarted[i])

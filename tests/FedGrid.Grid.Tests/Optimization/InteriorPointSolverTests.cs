@@ -203,4 +203,28 @@ public class InteriorPointSolverTests
         Assert.Equal(SolverStatus.Optimal, r.Status);
         Assert.Equal(0, allocated);
     }
+
+    [Fact]
+    public void Programs_without_cone_rows_or_without_equalities_are_solved()
+    {
+        // min ½‖x‖² s.t. Σx = 1: x = 1/n (Lagrange, by hand); no cone rows at all.
+        var b = new ConeProgramBuilder();
+        var vars = Enumerable.Range(0, 5).Select(i => b.AddVariable($"x{i}")).ToArray();
+        var sum = new LinearExpression();
+        foreach (var v in vars) { sum.Add(v); b.AddObjectiveProduct(v, v, 0.5); }
+        b.AddEquality(sum, 1);
+        var s1 = Solve(b.Build(), out var r1);
+        Assert.Equal(SolverStatus.Optimal, r1.Status);
+        for (int i = 0; i < 5; i++) Assert.Equal(0.2, s1.X[i], 8);
+
+        // min ½x² − x with no constraints: x = 1.
+        var c = new ConeProgramBuilder();
+        var x = c.AddVariable("x");
+        c.AddObjectiveProduct(x, x, 0.5);
+        c.AddObjectiveLinear(x, -1);
+        var s2 = Solve(c.Build(), out var r2);
+        Assert.Equal(SolverStatus.Optimal, r2.Status);
+        Assert.Equal(1, s2.X[0], 8);
+        Assert.Equal(-0.5, r2.PrimalObjective, 8);
+    }
 }

@@ -181,3 +181,56 @@ public class SetpointProjectorTests
         return c;
     }
 }
+
+public class WarmStartTests
+{
+    [Fact]
+    public void Warm_started_slots_give_the_cold_start_setpoints_in_fewer_iterations()
+    {
+        var feeder = FedGrid.TestSupport.TestFeeders.BaranWu();
+        var set = SyntheticUnitSet.Draw(feeder, 1);
+        var b = new ProjectionInput(feeder.Buses.Count, set.Units.Count);
+        set.Input.BaseLoadKw.CopyTo(b.BaseLoadKw, 0);
+        set.Input.BaseLoadKvar.CopyTo(b.BaseLoadKvar, 0);
+        set.Input.MinKw.CopyTo(b.MinKw, 0);
+        set.Input.MaxKw.CopyTo(b.MaxKw, 0);
+        for (int u = 0; u < set.Units.Count; u++) b.ProposalKw[u] = set.Input.MinKw[u] + 0.85 * (set.Input.MaxKw[u] - set.Input.MinKw[u]);
+        var warm = new SetpointProjector(feeder, set.Units);
+        var cold = new SetpointProjector(feeder, set.Units, options: new ProjectionOptions(Solver: new FedGrid.Grid.Optimization.SolverOptions()));
+        warm.Project(set.Input);
+        int warmIterations = 0, coldIterations = 0;
+        foreach (var input in new[] { b, set.Input, b })
+        {
+            var rw = warm.Project(input);
+            var rc = cold.Project(input);
+            Assert.Equal(ProjectionStatus.Projected, rw.Status);
+            Assert.Equal(ProjectionStatus.Projected, rc.Status);
+            for (int u = 0; u < set.Units.Count; u++) Assert.Equal(rc.SetpointKw[u], rw.SetpointKw[u], 4);
+            warmIterations += rw.Iterations;
+            coldIterations += rc.Iterations;
+        }
+        Assert.True(warmIterations < coldIterations, $"warm {warmIterations} vs cold {coldIterations} iterations");
+    }
+}
+
+public class KktFillTests
+{
+    [Fact]
+    public void Feeder_KKT_factor_grows_linearly_with_the_feeder()
+    {
+        // Minimum degree on the (nearly tree-shaped) branch flow KKT system: the factor's size per
+        // bus must not grow with the feeder, i.e. the fill stays O(n).
+        double PerBus(int copies)
+        {
+            var feeder = FedGrid.TestSupport.TestFeeders.BaranWu(copies);
+            var set = SyntheticUnitSet.Draw(feeder, 1);
+            var projector = new SetpointProjector(feeder, set.Units);
+            var s = projector.Solver;
+            int offDiagonal = s.KktNonZeros - s.KktSize;
+            Assert.True(s.FactorNonZeros <= 2.0 * offDiagonal, $"L has {s.FactorNonZeros} entries for {offDiagonal} off-diagonal KKT entries");
+            return (double)s.FactorNonZeros / feeder.Buses.Count;
+        }
+        double small = PerBus(1), large = PerBus(10);
+        Assert.InRange(large / small, 0.8, 1.2);
+    }
+}

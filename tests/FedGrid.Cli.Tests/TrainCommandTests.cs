@@ -1,0 +1,87 @@
+using System.Text.Json;
+using FedGrid.Cli.Commands;
+
+namespace FedGrid.Cli.Tests;
+
+public class TrainCommandTests
+{
+    private static (int Code, string Out, string Err, string Dir) Run(TrainOptions options)
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-train-test-" + Guid.NewGuid().ToString("N"));
+        var stdout = new StringWriter();
+        var stderr = new StringWriter();
+        int code = TrainCommand.Run(options with { OutDir = dir }, stdout, stderr);
+        return (code, stdout.ToString(), stderr.ToString(), dir);
+    }
+
+    [Theory]
+    [InlineData("actor-critic", null)]
+    [InlineData("q-learning", "real-time")]
+    [InlineData("double-q", "time-of-use")]
+    public void Json_summary_has_the_contract_fields(string learner, string? tariff)
+    {
+        var (code, output, err, dir) = Run(new TrainOptions("centralized", learner, Tariff: tariff, Days: 2, Seed: 3, Json: true));
+        try
+        {
+            Assert.Equal(0, code);
+            using var doc = JsonDocument.Parse(output); // stdout holds only the JSON
+            var root = doc.RootElement;
+            foreach (string field in (string[])["finalDailyCost", "noControlDailyCost", "peakReductionPct", "days", "seed", "finalPeakKw",
+                         "noControlPeakKw", "violationSlots", "projections", "decisionSteps", "trainingSeconds"])
+                Assert.Equal(JsonValueKind.Number, root.GetProperty(field).ValueKind);
+            foreach (string field in (string[])["oracleDailyCost", "savingsCapturedPct", "daysToNinetyPct"])
+                Assert.True(root.TryGetProperty(field, out var v) && v.ValueKind is JsonValueKind.Number or JsonValueKind.Null, field);
+            Assert.Equal(learner, root.GetProperty("learner").GetString());
+            Assert.Equal("centralized", root.GetProperty("mode").GetString());
+            Assert.Equal(2, root.GetProperty("days").GetInt32());
+            Assert.Equal(3UL, root.GetProperty("seed").GetUInt64());
+            Assert.Contains(tariff == "real-time" ? "real-time" : "time-of-use", root.GetProperty("tariff").GetString());
+            Assert.Contains($"train: {learner}: day 2/2", err);
+            Assert.Equal(output.Trim(), File.ReadAllText(Path.Combine(dir, "summary.json")).Trim());
+            string[] daily = File.ReadAllLines(Path.Combine(dir, "daily.csv"));
+            Assert.Equal("day,cost,bill,discomfort,peakKw,violationSlots,projections", daily[0]);
+            Assert.Equal(3, daily.Length);
+            byte[] png = File.ReadAllBytes(Path.Combine(dir, "convergence.png"));
+            // PNG signature (ISO/IEC 15948 / W3C PNG, section 5.2).
+            Assert.Equal(new byte[] { 0x89, 0x50, 0x4E, 0x47, 0x0D, 0x0A, 0x1A, 0x0A }, png[..8]);
+        }
+        finally { Directory.Delete(dir, true); }
+    }
+
+    [Fact]
+    public void Text_output_shows_the_figures_and_the_cautions()
+    {
+        var (code, output, _, dir) = Run(new TrainOptions("centralized", "q-learning", Days: 1));
+        try
+        {
+            Assert.Equal(0, code);
+            Assert.Contains("Savings captured", output);
+            Assert.Contains("Cautions:", output);
+            Assert.Contains(dir, output);
+        }
+        finally { Directory.Delete(dir, true); }
+    }
+
+    [Theory]
+    [InlineData("federated", "actor-critic", null, 2, "--mode: unknown mode 'federated'")]
+    [InlineData("centralized", "sarsa", null, 2, "--learner: unknown learner 'sarsa'")]
+    [InlineData("centralized", "actor-critic", "flat", 2, "--tariff: unknown tariff 'flat'")]
+    [InlineData("centralized", "actor-critic", null, 0, "--days must be between 1 and 366")]
+    public void Bad_options_are_user_errors(string mode, string learner, string? tariff, int days, string message)
+    {
+        var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, learner, Tariff: tariff, Days: days)));
+        Assert.Contains(message, e.Message);
+    }
+}
+
+public class TrainProcessTests
+{
+    [Fact]
+    public void Unknown_mode_exits_with_code_2_and_names_the_modes()
+    {
+        var (code, stdout, stderr) = CliProcess.Run("train", "--mode", "federated", "--days", "1");
+        Assert.Equal(2, code);
+        Assert.Equal("", stdout);
+        Assert.Contains("--mode: unknown mode 'federated'; available: centralized", stderr);
+    }
+}
