@@ -16,6 +16,7 @@ namespace FedGrid.Bench;
 /// FEDGRID_AUDIT_RUN_PRIVATE). One launch, three iterations: each iteration is seconds long.
 /// </summary>
 [SimpleJob(launchCount: 1, warmupCount: 0, iterationCount: 3)]
+[InProcess]
 [MemoryDiagnoser]
 public class AuditBenchmarks
 {
