@@ -1,4 +1,7 @@
 using BenchmarkDotNet.Attributes;
+using BenchmarkDotNet.Configs;
+using BenchmarkDotNet.Jobs;
+using BenchmarkDotNet.Toolchains.InProcess.Emit;
 using FedGrid.Audit.Attacks;
 using FedGrid.Audit.Runs;
 using FedGrid.Audit.Scoring;
@@ -15,8 +18,7 @@ namespace FedGrid.Bench;
 /// matching excluded). The run folder is trained once in the global setup (or taken from FEDGRID_AUDIT_RUN_PLAIN /
 /// FEDGRID_AUDIT_RUN_PRIVATE). One launch, three iterations: each iteration is seconds long.
 /// </summary>
-[SimpleJob(launchCount: 1, warmupCount: 0, iterationCount: 3)]
-[InProcess]
+[Config(typeof(AuditBenchmarkConfig))]
 [MemoryDiagnoser]
 public class AuditBenchmarks
 {
@@ -59,4 +61,12 @@ public class AuditBenchmarks
     /// <summary>Every attack (subspace and meter calibration included) and the scoring on the private-columns run.</summary>
     [Benchmark]
     public int AttackAndScorePrivateColumns() => Scorer.Score(_privateRun!.View, Auditor.Attack(_privateRun.View), _privateRun.Truth!).Summaries.Count;
+}
+
+/// <summary>One in-process job of three iterations without warm-up: each iteration of the audit takes seconds.</summary>
+public sealed class AuditBenchmarkConfig : ManualConfig
+{
+    /// <summary>Creates the configuration.</summary>
+    public AuditBenchmarkConfig() =>
+        AddJob(Job.Default.WithToolchain(InProcessEmitToolchain.Instance).WithLaunchCount(1).WithWarmupCount(0).WithIterationCount(3).WithInvocationCount(1).WithUnrollFactor(1));
 }
