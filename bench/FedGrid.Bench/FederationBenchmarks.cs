@@ -1,5 +1,4 @@
 using BenchmarkDotNet.Attributes;
-using BenchmarkDotNet.Engines;
 using FedGrid.Federation.Households;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
@@ -64,8 +63,10 @@ public class FederationBenchmarks
             _agent.Receive(_model);
         }
         _agent.BeginStep(s, _x, 0, 1, 0.4);
+        _sums.Sums.Round = (int)(s / 96);
         _sums.Sums.Step = s;
         _agent.Receive(_sums);
+        _setpoint.Setpoint.Round = (int)(s / 96);
         _setpoint.Setpoint.Step = s;
         _agent.Receive(_setpoint);
         _agent.CompleteStep(0.1);
@@ -74,9 +75,12 @@ public class FederationBenchmarks
 
 }
 
-/// <summary>A simulated day of the whole in-process protocol (see <see cref="FederationBenchmarks"/>); monitoring strategy, one invocation per iteration (the run moves on through its horizon).</summary>
+/// <summary>
+/// A simulated day of the whole in-process protocol (see <see cref="FederationBenchmarks"/>). The run moves on through
+/// its horizon, so run it with one invocation per iteration:
+/// <c>--filter '*FederatedRunBenchmarks*' --inProcess --strategy Monitoring --warmupCount 2 --iterationCount 6 --invocationCount 1 --unrollFactor 1</c>.
+/// </summary>
 [MemoryDiagnoser]
-[SimpleJob(RunStrategy.Monitoring, launchCount: 1, warmupCount: 2, iterationCount: 6, invocationCount: 1)]
 public class FederatedRunBenchmarks
 {
     private InProcessFederation _run = null!;

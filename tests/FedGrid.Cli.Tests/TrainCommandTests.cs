@@ -63,7 +63,7 @@ public class TrainCommandTests
     }
 
     [Theory]
-    [InlineData("federated", "actor-critic", null, 2, "--mode: unknown mode 'federated'")]
+    [InlineData("gossip", "actor-critic", null, 2, "--mode: unknown mode 'gossip'")]
     [InlineData("centralized", "sarsa", null, 2, "--learner: unknown learner 'sarsa'")]
     [InlineData("centralized", "actor-critic", "flat", 2, "--tariff: unknown tariff 'flat'")]
     [InlineData("centralized", "actor-critic", null, 0, "--days must be between 1 and 366")]
@@ -79,9 +79,9 @@ public class TrainProcessTests
     [Fact]
     public void Unknown_mode_exits_with_code_2_and_names_the_modes()
     {
-        var (code, stdout, stderr) = CliProcess.Run("train", "--mode", "federated", "--days", "1");
+        var (code, stdout, stderr) = CliProcess.Run("train", "--mode", "gossip", "--days", "1");
         Assert.Equal(2, code);
         Assert.Equal("", stdout);
-        Assert.Contains("--mode: unknown mode 'federated'; available: centralized", stderr);
+        Assert.Contains("--mode: unknown mode 'gossip'; available: centralized, federated", stderr);
     }
 }

@@ -66,7 +66,7 @@ public sealed class IdentityTests
         const int steps = 12;
         var fed = TestRuns.Options(stepsPerRound: steps) with
         {
-            Learning = TestRuns.Options().Learning with { MaxGradientNorm = 1e12, RolloutSteps = 4 },
+            Learning = TestRuns.Options().Learning with { MaxGradientNorm = 1e12, RolloutSteps = 4, ActorLearningRate = 0.05, CriticLearningRate = 0.05 },
             LocalTraining = new LocalTrainingOptions { FullBatch = true, Optimiser = LocalOptimiser.Sgd, Epochs = 1 },
         };
         var run = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions { Scheme = ClearScheme.Plain(), Federation = fed }, new RecordingTranscript());
@@ -150,43 +150,62 @@ public sealed class IdentityTests
             }
             ownActorGrad[m] = gA;
         }
-        double lr = o.ActorLearningRate;
-        DenseNetwork fedActor = run.Coordinator.Actor;
-        var (so, sn) = actor0.SharedRange();
-        double worstShared = 0, stepSize = 0;
-        for (int i = so; i < so + sn; i++)
-        {
-            double expected = actor0.Parameters[i] - lr * actorGrad[i];
-            stepSize = Math.Max(stepSize, Math.Abs(lr * actorGrad[i]));
-            worstShared = Math.Max(worstShared, Math.Abs(fedActor.Parameters[i] - expected));
-        }
-        Assert.True(stepSize > 1e-6, "the centralized step moved nothing; the check would be empty");
-        Assert.True(worstShared <= 1e-3 * stepSize + 1e-7, $"shared actor parameters differ by {worstShared:E2} (step size {stepSize:E2})");
-        // Each household's columns: trained by that household alone, so they take its own loss's full step.
-        double worstColumns = 0, columnStep = 0;
+        // Parameters one household alone trains (its first-layer columns and its output head) take its own loss's full
+        // step; every other parameter the mean step. Everything else in the check is the independent reference above.
+        var ownCriticGrad = new float[n][];
         for (int m = 0; m < n; m++)
         {
-            var (co, cn) = actor0.FirstLayerBlockRange(m);
-            for (int i = co; i < co + cn; i++)
+            ownCriticGrad[m] = new float[critic0.ParameterCount];
+        }
+        // (critic own gradients: recompute per household, as for the actor)
+        for (int m = 0; m < n; m++)
+        {
+            critic0.Forward(x[rows], cws, values);
+            float ret = values[m];
+            for (int t = rows - 1; t >= 0; t--)
             {
-                double expected = actor0.Parameters[i] - lr * ownActorGrad[m][i];
-                columnStep = Math.Max(columnStep, Math.Abs(lr * ownActorGrad[m][i]));
-                worstColumns = Math.Max(worstColumns, Math.Abs(fedActor.Parameters[i] - expected));
+                ret = (float)(cost[m, t] * o.CostScale) + gamma * ret;
+                critic0.Forward(x[t], cws, values);
+                var dv = new float[n];
+                dv[m] = weight * (values[m] - ret);
+                critic0.Backward(cws, dv, ownCriticGrad[m]);
             }
         }
-        Assert.True(columnStep > 1e-7, "the columns' step is empty");
-        Assert.True(worstColumns <= 1e-3 * columnStep + 1e-7, $"first-layer columns differ by {worstColumns:E2} (step {columnStep:E2})");
-        // Critic, shared part.
-        double clr = o.CriticLearningRate, worstCritic = 0, criticStep = 0;
-        var (to, tn) = critic0.SharedRange();
-        for (int i = to; i < to + tn; i++)
+        Check(actor0, run.Coordinator.Actor, actorGrad, ownActorGrad, o.ActorLearningRate, 2, "actor");
+        Check(critic0, run.Coordinator.Critic, criticGrad, ownCriticGrad, o.CriticLearningRate, 1, "critic");
+    }
+
+    private static void Check(DenseNetwork before, DenseNetwork federated, float[] meanGrad, float[][] ownGrad, double lr, int outputsPerHousehold, string what)
+    {
+        int n = ownGrad.Length;
+        var owner = Enumerable.Repeat(-1, before.ParameterCount).ToArray();
+        for (int m = 0; m < n; m++)
         {
-            double expected = critic0.Parameters[i] - clr * criticGrad[i];
-            criticStep = Math.Max(criticStep, Math.Abs(clr * criticGrad[i]));
-            worstCritic = Math.Max(worstCritic, Math.Abs(run.Coordinator.Critic.Parameters[i] - expected));
+            foreach (var (o, len) in Coordination.Coordinator.OwnedRanges(before, m, outputsPerHousehold))
+            {
+                for (int i = o; i < o + len; i++) owner[i] = m;
+            }
         }
-        Assert.True(criticStep > 1e-6);
-        Assert.True(worstCritic <= 1e-3 * criticStep + 1e-7, $"shared critic parameters differ by {worstCritic:E2} (step {criticStep:E2})");
+        double worstShared = 0, sharedStep = 0, worstOwned = 0, ownedStep = 0;
+        for (int i = 0; i < before.ParameterCount; i++)
+        {
+            double g = owner[i] < 0 ? meanGrad[i] : ownGrad[owner[i]][i];
+            double expected = before.Parameters[i] - lr * g;
+            double diff = Math.Abs(federated.Parameters[i] - expected);
+            if (owner[i] < 0)
+            {
+                sharedStep = Math.Max(sharedStep, Math.Abs(lr * g));
+                worstShared = Math.Max(worstShared, diff);
+            }
+            else
+            {
+                ownedStep = Math.Max(ownedStep, Math.Abs(lr * g));
+                worstOwned = Math.Max(worstOwned, diff);
+            }
+        }
+        Assert.True(sharedStep > 1e-5 && ownedStep > 1e-5, $"{what}: the centralized step moved nothing; the check would be empty");
+        Assert.True(worstShared <= 1e-3 * sharedStep + 1e-7, $"{what}: shared parameters differ by {worstShared:E2} (step size {sharedStep:E2})");
+        Assert.True(worstOwned <= 1e-3 * ownedStep + 1e-7, $"{what}: household-owned parameters differ by {worstOwned:E2} (step size {ownedStep:E2})");
     }
 
     private static DenseNetwork Copy(DenseNetwork network)

@@ -126,7 +126,8 @@ internal static class TrainCommand
         return CliRunner.ExitOk;
     }
 
-    private static TrainOutcome RunCentralized(TrainContext c)
+    /// <summary>The baselines every mode is scored against: no control on every day, the daily optimum on the final window.</summary>
+    internal static (IReadOnlyList<DayMetrics> NoControl, IReadOnlyList<double> Oracle) Baselines(TrainContext c)
     {
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         c.Progress.WriteLine($"train: no control on the same {days} days");
@@ -134,6 +135,13 @@ internal static class TrainCommand
         int window = Math.Min(TrainingSummary.FinalWindowDays, days);
         c.Progress.WriteLine($"train: perfect-foresight optimum of the last {window} days (from no control's state at their first midnight)");
         IReadOnlyList<double> oracle = OracleBaseline.LastDays(c.Scenario, window, k => c.Progress.WriteLine($"train: optimum: day {k}/{window}"));
+        return (noControl, oracle);
+    }
+
+    private static TrainOutcome RunCentralized(TrainContext c)
+    {
+        int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
+        var (noControl, oracle) = Baselines(c);
         var trainer = new CentralizedTrainer(c.Scenario, new TrainingOptions(c.Learner, c.Seed));
         string name = LearnerNames.Of(c.Learner);
         TrainingRun run = trainer.Train(d => c.Progress.WriteLine(

@@ -66,8 +66,7 @@ internal static class TrainFederated
         if (f.MinQuorum is { } q && q > households)
             throw new UserInputException($"--min-quorum {q} exceeds the scenario's {households} households");
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
-        c.Progress.WriteLine($"train: no control on the same {days} days");
-        var noControl = NoControlBaseline.Run(c.Scenario);
+        var (noControl, oracle) = TrainCommand.Baselines(c);
         IFederationScheme scheme = ClearScheme.FromName(f.Scheme ?? ClearScheme.PlainName);
         var fed = new FederationOptions
         {
@@ -87,7 +86,7 @@ internal static class TrainFederated
         });
         FederatedRunResult r = runner.Run(d => c.Progress.WriteLine(FormattableString.Invariant(
             $"train: federated {scheme.Name}: day {d.Day}/{days} cost {d.Cost:0.00} $ (no control {noControl[d.Day - 1].Cost:0.00}) peak {d.PeakKw:0.0} kW projections {d.Projections}")));
-        var summary = TrainingSummary.Create(Mode, r.Run, noControl, null, c.Scenario.Tariff.Name, c.Scenario.Name, households, c.Seed) with
+        var summary = TrainingSummary.Create(Mode, r.Run, noControl, oracle, c.Scenario.Tariff.Name, c.Scenario.Name, households, c.Seed) with
         {
             Extra =
             [
@@ -103,7 +102,7 @@ internal static class TrainFederated
                 new("bytesPerHouseholdPerStep", Math.Round(r.BytesPerHouseholdPerStep, 1)),
             ],
         };
-        return new TrainOutcome(r.Run, summary, noControl, null,
+        return new TrainOutcome(r.Run, summary, noControl, oracle,
             [new("transcript", transcriptName), new("groundTruth", GroundTruthWriter.FileName)]);
     }
 }

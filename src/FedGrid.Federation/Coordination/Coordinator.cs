@@ -539,14 +539,13 @@ public sealed class Coordinator
             _scheme.AggregateUploads(received, _actorShared, _criticShared);
             _actorShared.CopyTo(_actor.Parameters.Slice(_actor.SharedRange().Offset));
             _criticShared.CopyTo(_critic.Parameters.Slice(_critic.SharedRange().Offset));
-            if (_setup.Scheme.ColumnsCrossWire)
+            // Parameters that one household alone trains (its output head; under plain also its first-layer columns)
+            // take that household's uploaded value: the average over the households that train them.
+            bool columns = _setup.Scheme.ColumnsCrossWire;
+            foreach (ReceivedUpload r in received)
             {
-                // Each household's columns are trained by that household alone: its upload is their new value.
-                foreach (ReceivedUpload r in received)
-                {
-                    CopyColumns(_actor, r.Household, r.Upload.ActorParameters);
-                    CopyColumns(_critic, r.Household, r.Upload.CriticParameters);
-                }
+                CopyOwned(_actor, r.Household, r.Upload.ActorParameters, 2 * (ActorShape.OutputSize / (2 * _m)), columns);
+                CopyOwned(_critic, r.Household, r.Upload.CriticParameters, CriticShape.OutputSize / _m, columns);
             }
             AggregatedRounds++;
             Event(EventKind.RoundAggregated, contributors, $"{_setup.Scheme.Name}: {received.Count} uploads, {samples} samples");
@@ -571,13 +570,48 @@ public sealed class Coordinator
         _transcript.Flush();
     }
 
-    private static void CopyColumns(DenseNetwork network, int household, Google.Protobuf.Collections.RepeatedField<float> values)
+    /// <summary>
+    /// The ranges of the flat parameter vector that household m alone trains: its first-layer columns W_m, and its rows of
+    /// the output layer (<paramref name="outputsPerHousehold"/> outputs: 2k for the actor, 1 for the critic) with their biases.
+    /// FedAvg over the households that train a parameter gives these the household's own value.
+    /// </summary>
+    /// <param name="network">The network.</param>
+    /// <param name="household">m.</param>
+    /// <param name="outputsPerHousehold">Outputs of household m's head.</param>
+    /// <returns>(offset, length) ranges, first-layer columns first.</returns>
+    public static (int Offset, int Length)[] OwnedRanges(DenseNetwork network, int household, int outputsPerHousehold)
     {
-        var (o, n) = network.FirstLayerBlockRange(household);
+        ArgumentNullException.ThrowIfNull(network);
+        int last = network.LayerCount - 1, inputs = network.LayerInputSize(last);
+        return
+        [
+            network.FirstLayerBlockRange(household),
+            (network.WeightOffset(last) + household * outputsPerHousehold * inputs, outputsPerHousehold * inputs),
+            (network.BiasOffset(last) + household * outputsPerHousehold, outputsPerHousehold),
+        ];
+    }
+
+    private static void CopyOwned(DenseNetwork network, int household, Google.Protobuf.Collections.RepeatedField<float> upload, int outputs, bool columns)
+    {
+        var ranges = OwnedRanges(network, household, outputs);
+        int sharedOffset = network.SharedRange().Offset;
+        int columnLength = ranges[0].Length;
+        int head = columns ? columnLength : 0; // where the shared part starts inside the upload
         Span<float> p = network.Parameters;
-        for (int i = 0; i < n; i++)
+        if (columns)
         {
-            p[o + i] = values[i];
+            for (int i = 0; i < columnLength; i++)
+            {
+                p[ranges[0].Offset + i] = upload[i];
+            }
+        }
+        for (int r = 1; r < ranges.Length; r++)
+        {
+            var (o, n) = ranges[r];
+            for (int i = 0; i < n; i++)
+            {
+                p[o + i] = upload[head + (o - sharedOffset) + i];
+            }
         }
     }
 

@@ -336,9 +336,9 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException($"{what} model carries {values.Count} parameters; {expected} expected");
         }
-        foreach (float v in values)
+        for (int j = 0; j < values.Count; j++)
         {
-            if (!float.IsFinite(v))
+            if (!float.IsFinite(values[j]))
             {
                 throw new ProtocolException($"{what} model holds a non-finite parameter");
             }
