@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # Runs the whole FedGrid test suite on a fresh Debian 12 machine with the .NET SDK.
-# Installs the outside reference tools the tests compare against (SciPy, CVXOPT) when they
+# Installs the outside reference tools the tests compare against (SciPy, CVXOPT, Chromium) when they
 # are missing; safe to rerun. Exit code is non-zero when any test fails.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -9,6 +9,7 @@ need=()
 /usr/bin/python3 -c "import scipy" 2>/dev/null || need+=(python3-scipy)
 /usr/bin/python3 -c "import cvxopt" 2>/dev/null || need+=(python3-cvxopt)
 [ -x /usr/bin/readelf ] || need+=(binutils)   # outside ELF reader for the TorchSharp build-fix tests
+[ -x /usr/bin/chromium ] || need+=(chromium)  # headless rendering check of the offline exposure report
 if [ ${#need[@]} -gt 0 ]; then
   sudo_cmd=""
   [ "$(id -u)" -ne 0 ] && sudo_cmd="sudo"

@@ -12,5 +12,6 @@ internal static class Verbs
         yield return Commands.TrainCommand.Create();
         yield return Commands.OptimumCommand.Create();
         yield return Commands.ProjectCommand.Create();
+        yield return Commands.AuditCommand.Create();
     }
 }
