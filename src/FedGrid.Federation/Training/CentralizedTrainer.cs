@@ -84,13 +84,13 @@ public static class TrainingDefaults
     /// Bins per state feature of the tabular learners (same order as <see cref="HouseholdControlTask.FeatureNames"/>): the
     /// desired power (3), price (4), time of day via sin and cos (4 each), weekend (2); the rest unbinned.
     /// </summary>
-    public static ImmutableArray<int> TabularBins { get; } = [1, 1, 3, 4, 4, 4, 2, 1, 1, 1];
+    public static ImmutableArray<int> TabularBins { get; } = [1, 1, 3, 4, 4, 4, 2, 1, 1, 1, 1, 1, 1, 1];
 
     /// <summary>Lower ends of the tabular bins (scaled features).</summary>
-    public static ImmutableArray<float> TabularLower { get; } = [0, 0, 0, 0.2f, -1, -1, 0, 0, 0, 0];
+    public static ImmutableArray<float> TabularLower { get; } = [0, 0, 0, 0.2f, -1, -1, 0, 0, 0, 0, 0, 0, 0, 0];
 
     /// <summary>Upper ends of the tabular bins (scaled features).</summary>
-    public static ImmutableArray<float> TabularUpper { get; } = [1, 1, 1.5f, 1.8f, 1, 1, 1, 1, 1, 1];
+    public static ImmutableArray<float> TabularUpper { get; } = [1, 1, 1.5f, 1.8f, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1];
 }
 
 /// <summary>What a training run produced.</summary>
