@@ -171,4 +171,128 @@ public class HouseholdControlTaskTests
         }
         Assert.Equal(0, GC.GetAllocatedBytesForCurrentThread() - before);
     }
+
+    [Fact]
+    public void Look_ahead_features_follow_the_published_time_of_use_schedule()
+    {
+        // Default scenario's weekday schedule (README, invented tariff): off-peak 0.10 $/kWh 22:00-07:00,
+        // shoulder 0.18 07:00-16:00, peak 0.38 16:00-22:00; Monday is day 0.
+        var task = new HouseholdControlTask(TwoDays, new HouseholdTaskOptions(Project: false));
+        int n = task.AgentCount, k = task.StateSizePerAgent;
+        float[] state = new float[n * k], lo = new float[n], hi = new float[n], cost = new float[n];
+        for (int t = 0; t <= 64; t++)
+        {
+            task.Observe(state);
+            if (t == 0)
+            {
+                // 00:00, off-peak: the next 12 h reach the shoulder at 07:00, never the peak.
+                Assert.Equal(0f, state[10], 1e-6);
+                Assert.Equal((0.18 - 0.10) / 0.25, state[11], 1e-6);
+                Assert.Equal(7.0 / 12.0, state[12], 1e-6);
+            }
+            if (t == 64)
+            {
+                // 16:00, peak: off-peak from 22:00 lies within 12 h; the price changes in 6 h.
+                Assert.Equal((0.38 - 0.10) / 0.25, state[10], 1e-6);
+                Assert.Equal(0f, state[11], 1e-6);
+                Assert.Equal(6.0 / 12.0, state[12], 1e-6);
+                break;
+            }
+            task.GetBounds(lo, hi);
+            task.Step(hi, cost);
+        }
+    }
+
+    [Fact]
+    public void Charging_urgency_is_energy_left_over_what_full_power_delivers_before_departure()
+    {
+        var task = new HouseholdControlTask(TwoDays, new HouseholdTaskOptions(Project: false));
+        DemandResponseEnvironment env = task.Environment;
+        int n = task.AgentCount, k = task.StateSizePerAgent, checkedSlots = 0;
+        float[] state = new float[n * k], lo = new float[n], hi = new float[n], cost = new float[n];
+        for (int t = 0; t < TwoDays.SlotCount; t++)
+        {
+            task.Observe(state);
+            for (int m = 0; m < n; m++)
+            {
+                ChargingSession? session = env.CurrentSession(m);
+                if (session is null)
+                {
+                    Assert.Equal(0f, state[m * k + 13]);
+                    continue;
+                }
+                double maxKw = TwoDays.Households[m].Deferrable!.MaxKw;
+                double expected = env.DeferrableRemainingKwh[m] / ((session.DeadlineSlot - t) * 0.25 * maxKw);
+                Assert.Equal(Math.Min(expected, 2), state[m * k + 13], 1e-5);
+                Assert.InRange(state[m * k + 13], 0f, 1.0001f); // the deadline rule keeps every session finishable
+                checkedSlots++;
+            }
+            task.GetBounds(lo, hi);
+            task.Step(lo, cost); // minimum: sessions run up to their deadlines
+        }
+        Assert.True(checkedSlots > 100);
+    }
+
+    [Fact]
+    public void Shaped_costs_add_the_discounted_change_of_the_energy_owed_and_keep_the_true_day_figures()
+    {
+        const double gamma = 0.95;
+        var plain = new HouseholdControlTask(TwoDays, new HouseholdTaskOptions(Project: false));
+        var shaped = new HouseholdControlTask(TwoDays, new HouseholdTaskOptions(Project: false, ShapingDiscount: gamma));
+        int n = plain.AgentCount;
+        float[] lo = new float[n], hi = new float[n], act = new float[n], c = new float[n], cs = new float[n];
+        double[] before = new double[n], after = new double[n];
+        bool over = false;
+        int t = 0;
+        while (!over)
+        {
+            plain.GetBounds(lo, hi);
+            for (int m = 0; m < n; m++) act[m] = (t / 8 + m) % 2 == 0 ? lo[m] : hi[m];
+            shaped.EnergyOwedDollars(before);
+            plain.Step(act, c);
+            over = shaped.Step(act, cs);
+            shaped.EnergyOwedDollars(after);
+            for (int m = 0; m < n; m++)
+                Assert.Equal(c[m] + gamma * after[m] - before[m], cs[m], 1e-4);
+            t++;
+        }
+        Assert.Equal(plain.LastDay!.Cost, shaped.LastDay!.Cost, 9);
+    }
+
+    [Fact]
+    public void Undiscounted_shaping_shifts_every_policy_by_the_same_amount_so_rankings_hold()
+    {
+        // Ng, Harada & Russell (1999): with gamma = 1 the shaped return of any policy over the whole horizon is its true
+        // cost minus the starting potential (the potential is 0 once the horizon is over).
+        double Total(bool shape, Func<float, float, int, float> policy, out double trueCost)
+        {
+            var task = new HouseholdControlTask(TwoDays, new HouseholdTaskOptions(Project: false, ShapingDiscount: shape ? 1.0 : null));
+            int n = task.AgentCount;
+            float[] lo = new float[n], hi = new float[n], act = new float[n], cost = new float[n];
+            double total = 0;
+            trueCost = 0;
+            for (int t = 0; t < TwoDays.SlotCount; t++)
+            {
+                task.GetBounds(lo, hi);
+                for (int m = 0; m < n; m++) act[m] = policy(lo[m], hi[m], t);
+                bool over = task.Step(act, cost);
+                for (int m = 0; m < n; m++) total += cost[m];
+                trueCost += task.LastStep.TotalBillDollars + task.LastStep.TotalDiscomfortDollars;
+                if (over && !task.HorizonOver) task.NextDay();
+            }
+            return total;
+        }
+        var start = new HouseholdControlTask(TwoDays, new HouseholdTaskOptions(Project: false));
+        double[] owed0 = new double[start.AgentCount];
+        start.EnergyOwedDollars(owed0);
+        Func<float, float, int, float> desired = (lo, hi, _) => hi, minimum = (lo, _, _) => lo,
+            offPeak = (lo, hi, t) => t % 96 < 28 ? hi : lo;
+        double trueA, trueB, trueC;
+        double a = Total(true, desired, out trueA), b = Total(true, minimum, out trueB), cc = Total(true, offPeak, out trueC);
+        Assert.Equal(trueA - owed0.Sum(), a, 0.05);
+        Assert.Equal(trueB - owed0.Sum(), b, 0.05);
+        Assert.Equal(trueC - owed0.Sum(), cc, 0.05);
+        Assert.Equal(trueA.CompareTo(trueB), a.CompareTo(b));
+        Assert.Equal(trueB.CompareTo(trueC), b.CompareTo(cc));
+    }
 }

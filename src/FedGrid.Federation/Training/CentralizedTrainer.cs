@@ -53,21 +53,36 @@ public sealed record TrainingOptions(LearnerKind Learner, ulong Seed = 1, ActorC
 public static class TrainingDefaults
 {
     /// <summary>
-    /// Actor-critic: [64, 64] tanh, γ = 0.9, 4-step rollouts, actor 3e-4, critic 1e-3, entropy 1e-3, cost scale 2,
-    /// log σ in [−3, 1] (initial σ = e^−1 ≈ 0.37 before the squash).
+    /// Actor-critic: [64, 64] tanh, γ = 0.95, one-step TD updates (every slot), actor 1e-3, critic 1e-3, entropy 1e-3,
+    /// cost scale 4, log σ in [−3, 1] (initial σ = e^−1 ≈ 0.37 before the squash); trained on shaped costs (see
+    /// <see cref="TaskFor"/>).
     /// </summary>
     public static ActorCriticOptions ActorCritic { get; } = new()
     {
         HiddenSizes = [64, 64],
-        Gamma = 0.9,
-        RolloutSteps = 4,
-        ActorLearningRate = 3e-4,
+        Gamma = 0.95,
+        RolloutSteps = 1,
+        ActorLearningRate = 1e-3,
         CriticLearningRate = 1e-3,
         EntropyCoefficient = 1e-3,
-        CostScale = 2.0,
+        CostScale = 4.0,
         LogStdMin = -3f,
         LogStdMax = 1f,
     };
+
+    /// <summary>
+    /// The adapter settings for a learner when <see cref="TrainingOptions.Task"/> is null: projection on, and for
+    /// actor-critic the potential-based shaping of its training costs with its own γ
+    /// (<see cref="HouseholdTaskOptions.ShapingDiscount"/>); the tabular learners see the true costs.
+    /// </summary>
+    /// <param name="options">The training settings.</param>
+    public static HouseholdTaskOptions TaskFor(TrainingOptions options)
+    {
+        ArgumentNullException.ThrowIfNull(options);
+        if (options.Learner != LearnerKind.ActorCritic) return HouseholdTaskOptions.Default;
+        ActorCriticOptions ac = options.ActorCritic ?? ActorCritic;
+        return new HouseholdTaskOptions(ShapingDiscount: ac.Gamma);
+    }
 
     /// <summary>Tabular: γ = 0.95, ε from 1 to 0.05 over the first third of the budget, α = 1/(1+n)^0.6 per visit count.</summary>
     public static TabularOptions Tabular(int decisionSteps) => new()
@@ -84,13 +99,13 @@ public static class TrainingDefaults
     /// Bins per state feature of the tabular learners (same order as <see cref="HouseholdControlTask.FeatureNames"/>): the
     /// desired power (3), price (4), time of day via sin and cos (4 each), weekend (2); the rest unbinned.
     /// </summary>
-    public static ImmutableArray<int> TabularBins { get; } = [1, 1, 3, 4, 4, 4, 2, 1, 1, 1];
+    public static ImmutableArray<int> TabularBins { get; } = [1, 1, 3, 4, 4, 4, 2, 1, 1, 1, 1, 1, 1, 1];
 
     /// <summary>Lower ends of the tabular bins (scaled features).</summary>
-    public static ImmutableArray<float> TabularLower { get; } = [0, 0, 0, 0.2f, -1, -1, 0, 0, 0, 0];
+    public static ImmutableArray<float> TabularLower { get; } = [0, 0, 0, 0.2f, -1, -1, 0, 0, 0, 0, 0, 0, 0, 0];
 
     /// <summary>Upper ends of the tabular bins (scaled features).</summary>
-    public static ImmutableArray<float> TabularUpper { get; } = [1, 1, 1.5f, 1.8f, 1, 1, 1, 1, 1, 1];
+    public static ImmutableArray<float> TabularUpper { get; } = [1, 1, 1.5f, 1.8f, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1];
 }
 
 /// <summary>What a training run produced.</summary>
@@ -122,7 +137,7 @@ public sealed class CentralizedTrainer
         ArgumentNullException.ThrowIfNull(options);
         _scenario = scenario;
         Options = options;
-        Task = new HouseholdControlTask(scenario, options.Task);
+        Task = new HouseholdControlTask(scenario, options.Task ?? TrainingDefaults.TaskFor(options));
     }
 
     /// <summary>The settings.</summary>
@@ -230,3 +245,4 @@ public sealed class CentralizedTrainer
         return (steps, updates);
     }
 }
+

@@ -2,6 +2,7 @@ using FedGrid.Grid.Projection;
 using FedGrid.Households;
 using FedGrid.Households.Scenarios;
 using FedGrid.Households.Simulation;
+using FedGrid.Households.Tariffs;
 using FedGrid.Learning.Tasks;
 
 namespace FedGrid.Federation.Training;
@@ -9,7 +10,13 @@ namespace FedGrid.Federation.Training;
 /// <summary>Settings of <see cref="HouseholdControlTask"/>.</summary>
 /// <param name="Project">Project every slot's proposals onto the feeder limits with <see cref="SetpointProjector"/> (the coordinator's safety projection).</param>
 /// <param name="Projection">Projector settings, or null for the defaults.</param>
-public sealed record HouseholdTaskOptions(bool Project = true, ProjectionOptions? Projection = null)
+/// <param name="ShapingDiscount">
+/// When set, the costs handed to the learner are shaped with the potential of <see cref="HouseholdControlTask.EnergyOwedDollars"/>
+/// (Ng, Harada &amp; Russell 1999): c' = c + γ·Ψ(s') − Ψ(s) with γ this discount (it must equal the learner's γ for the
+/// shaping to preserve optimal policies). Only the learner's training signal changes; <see cref="HouseholdControlTask.LastDay"/>
+/// and <see cref="HouseholdControlTask.LastStep"/> keep the environment's true costs. Null: the true costs.
+/// </param>
+public sealed record HouseholdTaskOptions(bool Project = true, ProjectionOptions? Projection = null, double? ShapingDiscount = null)
 {
     /// <summary>The defaults: projection on.</summary>
     public static HouseholdTaskOptions Default { get; } = new();
@@ -44,20 +51,30 @@ public sealed class HouseholdControlTask : IControlTask
     /// <summary>Scale of the time left to a vehicle's departure in the state, hours.</summary>
     public const double DeadlineScaleHours = 12.0;
 
+    /// <summary>Look-ahead window of the public price forecast, slots (12 hours).</summary>
+    public const int LookAheadSlots = 48;
+
     /// <summary>
     /// The per-household features, in order. Public information: price, time of day (as sin/cos of the daily angle),
     /// weekend flag. The household's own information: its base load, flexible minimum and desired power (the box),
     /// the vehicle energy still to deliver and the hours to its departure (both 0 without a session: they tell the
     /// policy how much of the box is deferrable and for how long), and the tank's charge between its lower comfort
-    /// (0) and setpoint (1) energy (0 without a tank: how much pre-heating is possible).
+    /// (0) and setpoint (1) energy (0 without a tank: how much pre-heating is possible). Then public look-ahead from
+    /// <see cref="PublicForecast"/> over the next <see cref="LookAheadSlots"/> slots: the price above the cheapest and below the
+    /// dearest forecast price, and the hours to the next change of the forecast price; and the household's own urgency:
+    /// vehicle energy still to deliver ÷ (hours to departure × charger power), 1 = must charge at full power from now on.
     /// </summary>
     public static IReadOnlyList<string> FeatureNames { get; } =
     [
         "baseKw/5", "flexMinKw/5", "flexDesiredKw/5", "price/0.25", "sin(time of day)", "cos(time of day)", "weekend",
         "deferrableRemainingKwh/10", "hoursToDeparture/12", "tankCharge",
+        "(price - cheapest next 12 h)/0.25", "(dearest next 12 h - price)/0.25", "hoursToPriceChange/12", "chargingUrgency",
     ];
 
-    private const int Features = 10;
+    private const int Features = 14;
+    private readonly double[] _forecast, _aheadMin, _aheadMax, _aheadMean, _potential;
+    private readonly int[] _nextChange;
+    private readonly double[] _chargerKw;
     private readonly DemandResponseEnvironment _env;
     private readonly StepResult _step;
     private readonly SetpointProjector? _projector;
@@ -83,6 +100,32 @@ public sealed class HouseholdControlTask : IControlTask
         _kvarPerKw = new double[n];
         _tank = new ThermalStorage?[n];
         _setpoints = new double[n];
+        _chargerKw = new double[n];
+        _potential = new double[n];
+        int slots = _env.SlotCount;
+        _forecast = new double[slots];
+        for (int t = 0; t < slots; t++) _forecast[t] = PublicForecast(scenario.Tariff, t);
+        _aheadMin = new double[slots];
+        _aheadMax = new double[slots];
+        _aheadMean = new double[slots];
+        _nextChange = new int[slots];
+        for (int t = 0; t < slots; t++)
+        {
+            int end = Math.Min(slots, t + LookAheadSlots);
+            double lo = double.PositiveInfinity, hi = double.NegativeInfinity, sum = 0;
+            for (int u = t; u < end; u++)
+            {
+                lo = Math.Min(lo, _forecast[u]);
+                hi = Math.Max(hi, _forecast[u]);
+                sum += _forecast[u];
+            }
+            _aheadMin[t] = lo;
+            _aheadMax[t] = hi;
+            _aheadMean[t] = sum / (end - t);
+            int c = t + 1;
+            while (c < end && Math.Abs(_forecast[c] - _forecast[t]) < 1e-9) c++;
+            _nextChange[t] = c - t;
+        }
         var units = new FlexibleUnit[n];
         for (int m = 0; m < n; m++)
         {
@@ -90,6 +133,7 @@ public sealed class HouseholdControlTask : IControlTask
             _householdBus[m] = scenario.Feeder.IndexOf(h.BusId);
             _kvarPerKw[m] = h.KvarPerKw;
             _tank[m] = h.Thermal;
+            _chargerKw[m] = h.Deferrable?.MaxKw ?? 0;
             units[m] = new FlexibleUnit(h.Id, h.BusId, h.KvarPerKw);
         }
         _fixedKw = new double[buses];
@@ -193,6 +237,59 @@ public sealed class HouseholdControlTask : IControlTask
             x[9] = _tank[m] is { } t
                 ? (float)Math.Clamp((tank[m] - t.LowerComfortEnergyKwh) / (t.SetpointEnergyKwh - t.LowerComfortEnergyKwh), -1, 1.5)
                 : 0f;
+            x[10] = (float)((_forecast[slot] - _aheadMin[slot]) / PriceScale);
+            x[11] = (float)((_aheadMax[slot] - _forecast[slot]) / PriceScale);
+            x[12] = (float)(_nextChange[slot] * SlotCalendar.SlotHours / DeadlineScaleHours);
+            x[13] = session is null || _chargerKw[m] <= 0 ? 0f
+                : (float)Math.Clamp(remaining[m] / (Math.Max(1, session.DeadlineSlot - slot) * SlotCalendar.SlotHours * _chargerKw[m]), 0, 2);
+        }
+    }
+
+    /// <summary>
+    /// The public price forecast at a horizon slot, $ per kWh: a time-of-use tariff's own published schedule; for a
+    /// real-time tariff its model's deterministic daily shape (the drawn deviations and spikes are not known ahead);
+    /// any other tariff's price at the slot.
+    /// </summary>
+    /// <param name="tariff">The tariff.</param>
+    /// <param name="slot">Horizon slot.</param>
+    public static double PublicForecast(ITariff tariff, int slot)
+    {
+        ArgumentNullException.ThrowIfNull(tariff);
+        return tariff is RealTimeTariff rt ? rt.Model.Shape(SlotCalendar.SlotOfDay(slot)) : tariff.PriceAt(slot);
+    }
+
+    /// <summary>
+    /// Each household's energy still owed, priced at public forecast prices, $ (the shaping potential Ψ, see
+    /// <see cref="HouseholdTaskOptions.ShapingDiscount"/>): vehicle energy still to deliver × the cheapest forecast price
+    /// before its departure, plus the tank's deficit below its setpoint energy × the mean forecast price of the next
+    /// <see cref="LookAheadSlots"/> slots. Uses only the household's own state and the public tariff.
+    /// </summary>
+    /// <param name="owed">Receives one value per household.</param>
+    public void EnergyOwedDollars(Span<double> owed)
+    {
+        int n = _env.HouseholdCount;
+        if (owed.Length != n) throw new ArgumentException($"owed needs {n} values", nameof(owed));
+        if (_env.Done)
+        {
+            owed.Clear();
+            return;
+        }
+        int slot = _env.Slot;
+        ReadOnlySpan<double> remaining = _env.DeferrableRemainingKwh, tank = _env.TankEnergyKwh;
+        for (int m = 0; m < n; m++)
+        {
+            double v = 0;
+            ChargingSession? session = _env.CurrentSession(m);
+            if (session is not null && remaining[m] > 0)
+            {
+                int end = Math.Clamp(session.DeadlineSlot, slot + 1, _forecast.Length);
+                double cheapest = double.PositiveInfinity;
+                for (int u = slot; u < end; u++) cheapest = Math.Min(cheapest, _forecast[u]);
+                v += remaining[m] * cheapest;
+            }
+            if (_tank[m] is { } t)
+                v += Math.Max(0, t.SetpointEnergyKwh - tank[m]) * _aheadMean[slot];
+            owed[m] = v;
         }
     }
 
@@ -221,10 +318,18 @@ public sealed class HouseholdControlTask : IControlTask
         for (int m = 0; m < n; m++)
             _setpoints[m] = Math.Clamp((double)actions[m], min[m], des[m]);
         if (_projector is not null) Project();
+        double? shaping = Options.ShapingDiscount;
+        if (shaping is not null) EnergyOwedDollars(_potential);
         _env.Step(_setpoints, _step);
         double bill = _step.TotalBillDollars, discomfort = _step.TotalDiscomfortDollars;
         for (int m = 0; m < n; m++)
             costs[m] = (float)(_step.BillDollars[m] + _step.DiscomfortDollars[m]);
+        if (shaping is { } gamma)
+        {
+            for (int m = 0; m < n; m++) costs[m] -= (float)_potential[m];
+            EnergyOwedDollars(_potential);
+            for (int m = 0; m < n; m++) costs[m] += (float)(gamma * _potential[m]);
+        }
         _cost += bill + discomfort;
         _bill += bill;
         _discomfort += discomfort;
