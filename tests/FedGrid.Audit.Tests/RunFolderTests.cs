@@ -48,7 +48,7 @@ public sealed class RunFolderTests
         Assert.True(card.Households.Where(h => h.Channel == Channel.PartialSums && h.Quantity == Quantity.BaseLoad).All(h => h.Attacked.RelativeRmse <= 1e-6));
         Assert.True(Summary(card, Channel.ProjectionInputs, ProjectionInputAttack.ReportedName, Quantity.BaseLoad).RelativeRmse < 1e-12);
         Assert.True(ps.PriorRelativeRmse > 0.2);
-        Assert.Contains(results.Identifiability, i => i.Channel == Channel.PartialSums && i.Rank == 10);
+        Assert.Contains(results.Identifiability, i => i.Channel == Channel.PartialSums && i.Rank == FedGrid.Federation.Training.HouseholdControlTask.FeaturesPerHousehold);
     }
 
     private static double UploadErrorOnTrainedSlots(double? learningRate)

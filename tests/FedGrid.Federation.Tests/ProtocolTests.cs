@@ -3,6 +3,7 @@ using FedGrid.Federation.Households;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Schemes;
+using FedGrid.Federation.Training;
 using FedGrid.Federation.Transcripts;
 using FedGrid.Federation.Wire;
 
@@ -190,7 +191,7 @@ public sealed class ProtocolTests
         reply.Sums.Actor.AddRange(new float[64]);
         reply.Sums.Critic.AddRange(new float[64]);
         var setpoint = new CoordinatorMessage { HouseholdIndex = 3, Setpoint = new FinalSetpoint { SetpointKw = 0.5 } };
-        float[] x = new float[10];
+        float[] x = new float[HouseholdControlTask.FeaturesPerHousehold];
         void OneStep(long step)
         {
             agent.BeginStep(step, x, 0, 1, 0.4);

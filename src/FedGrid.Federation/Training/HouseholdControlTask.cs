@@ -71,8 +71,11 @@ public sealed class HouseholdControlTask : IControlTask
         "(price - cheapest next 12 h)/0.25", "(dearest next 12 h - price)/0.25", "hoursToPriceChange/12", "chargingUrgency",
     ];
 
-    private const int Features = 14;
+    /// <summary>Number of state features per household (the length of a household's block of the first layer's input).</summary>
+    public const int FeaturesPerHousehold = 14;
+
     private readonly double[] _forecast, _aheadMin, _aheadMax, _aheadMean, _potential;
+
     private readonly int[] _nextChange;
     private readonly double[] _chargerKw;
     private readonly DemandResponseEnvironment _env;
@@ -184,7 +187,7 @@ public sealed class HouseholdControlTask : IControlTask
     public int AgentCount => _env.HouseholdCount;
 
     /// <inheritdoc />
-    public int StateSizePerAgent => Features;
+    public int StateSizePerAgent => FeaturesPerHousehold;
 
     /// <inheritdoc />
     public int ActionSizePerAgent => 1;
@@ -214,7 +217,7 @@ public sealed class HouseholdControlTask : IControlTask
     public void Observe(Span<float> state)
     {
         int n = _env.HouseholdCount;
-        if (state.Length != n * Features) throw new ArgumentException($"state needs {n * Features} floats", nameof(state));
+        if (state.Length != n * FeaturesPerHousehold) throw new ArgumentException($"state needs {n * FeaturesPerHousehold} floats", nameof(state));
         ReadOnlySpan<double> baseKw = _env.BaseKw, min = _env.FlexMinKw, des = _env.FlexDesiredKw;
         ReadOnlySpan<double> remaining = _env.DeferrableRemainingKwh, tank = _env.TankEnergyKwh;
         int slot = Math.Min(_env.Slot, _env.SlotCount - 1);
@@ -223,7 +226,7 @@ public sealed class HouseholdControlTask : IControlTask
         float weekend = _env.Scenario.Calendar.IsWeekend(slot) ? 1f : 0f;
         for (int m = 0; m < n; m++)
         {
-            Span<float> x = state.Slice(m * Features, Features);
+            Span<float> x = state.Slice(m * FeaturesPerHousehold, FeaturesPerHousehold);
             x[0] = (float)(baseKw[m] / KwScale);
             x[1] = (float)(min[m] / KwScale);
             x[2] = (float)(des[m] / KwScale);
