@@ -8,7 +8,7 @@ namespace FedGrid.Federation.Training;
 /// <summary>How the projections of a day that did not end feasible went (all zero on a clean day).</summary>
 /// <param name="Unverified">Projected, but the exact AC check still found a violation.</param>
 /// <param name="Infeasible">No setpoints inside the boxes fit the limits; the proposal went ahead.</param>
-/// <param name="SolverFailures">The cone solver stopped without an answer; the proposal went ahead.</param>
+/// <param name="SolverFailures">The cone solver stopped without an answer; the setpoints fell back to every household at its minimum when that passed the exact AC check, else the proposal went ahead.</param>
 public sealed record ProjectionCounts(int Unverified, int Infeasible, int SolverFailures)
 {
     /// <summary>No trouble.</summary>

@@ -58,7 +58,11 @@ public enum ProjectionStatus
     Unverified,
     /// <summary>No setpoints inside the boxes satisfy the limits (of the formulation); see the binding limits.</summary>
     Infeasible,
-    /// <summary>The cone solver stopped without a solution or a certificate; see the solver status.</summary>
+    /// <summary>
+    /// The cone solver stopped without a solution or a certificate; see the solver status. The
+    /// setpoints are then every unit's minimum when that passes the exact AC check
+    /// (<see cref="ProjectionResult.FellBackToMinimum"/>), else the proposal, unverified.
+    /// </summary>
     SolverFailure,
 }
 
@@ -105,7 +109,7 @@ public sealed class ProjectionResult
     /// <summary>How the projection ended.</summary>
     public ProjectionStatus Status { get; internal set; }
 
-    /// <summary>Final setpoint of each unit, kW (the proposal when already feasible; the proposal too when infeasible or failed).</summary>
+    /// <summary>Final setpoint of each unit, kW (the proposal when already feasible or infeasible; see <see cref="ProjectionStatus.SolverFailure"/> for a failed solve).</summary>
     public double[] SetpointKw { get; }
 
     /// <summary>Σ w_u (setpoint_u − proposal_u)², kW².</summary>
@@ -122,6 +126,9 @@ public sealed class ProjectionResult
 
     /// <summary>Largest relaxation gap over the lines, pu².</summary>
     public double MaxRelaxationGap { get; internal set; }
+
+    /// <summary>Whether a failed solve fell back to every unit at its minimum, which passed the exact AC check.</summary>
+    public bool FellBackToMinimum { get; internal set; }
 
     /// <summary>Whether the exact AC power flow at <see cref="SetpointKw"/> converged and satisfies every limit within tolerance.</summary>
     public bool AcVerified { get; internal set; }

@@ -148,6 +148,7 @@ public sealed class SetpointProjector
         result.SolveMs = 0;
         result.ConeObjective = double.NaN;
         result.MaxRelaxationGap = 0;
+        result.FellBackToMinimum = false;
         result.SolverStatus = SolverStatus.Optimal;
         Array.Fill(result.VoltagePu, double.NaN);
         Array.Clear(result.RelaxationGapPu);
@@ -190,9 +191,18 @@ public sealed class SetpointProjector
             {
                 if (!havePoint)
                 {
-                    AcCheck(result.SetpointKw, result.AcFlow, out double v1);
+                    // No solution to trust: never let the overloading proposal go ahead when the
+                    // lowest load the boxes allow (every unit at its minimum) passes the exact AC check.
+                    input.MinKw.CopyTo(result.SetpointKw, 0);
+                    bool minimumOk = AcCheck(result.SetpointKw, result.AcFlow, out double v1);
+                    if (!minimumOk)
+                    {
+                        input.ProposalKw.CopyTo(result.SetpointKw, 0);
+                        AcCheck(result.SetpointKw, result.AcFlow, out v1);
+                    }
+                    result.FellBackToMinimum = minimumOk;
                     result.MaxVoltageViolationPuAfter = v1;
-                    result.AcVerified = false;
+                    result.AcVerified = minimumOk;
                     Finish(result, ProjectionStatus.SolverFailure, input, start);
                     return;
                 }

@@ -67,6 +67,29 @@ public class SetpointProjectorTests
     }
 
     [Fact]
+    public void Failed_solve_falls_back_to_every_unit_at_its_minimum_when_that_passes_the_ac_check()
+    {
+        // Two interior-point iterations cannot finish: the solver stops at its iteration limit.
+        var set = SyntheticUnitSet.Draw(Feeder33, 3);
+        var starved = new ProjectionOptions(Solver: new SolverOptions(MaxIterations: 2));
+        var projector = new SetpointProjector(Feeder33, set.Units, options: starved);
+        var r = projector.Project(set.Input);
+        Assert.Equal(ProjectionStatus.SolverFailure, r.Status);
+        Assert.Equal(SolverStatus.IterationLimit, r.SolverStatus);
+        Assert.True(r.FellBackToMinimum);
+        Assert.True(r.AcVerified);
+        Assert.Equal(set.Input.MinKw, r.SetpointKw);
+        Assert.Empty(r.AcFlow.FindViolations(Feeder33));
+
+        // The flag belongs to one projection: the same projector's next, already feasible, call clears it.
+        var input = set.Input;
+        for (int u = 0; u < input.ProposalKw.Length; u++) input.ProposalKw[u] = input.MinKw[u];
+        var next = projector.Project(input);
+        Assert.Equal(ProjectionStatus.AlreadyFeasible, next.Status);
+        Assert.False(next.FellBackToMinimum);
+    }
+
+    [Fact]
     public void Unverified_point_is_reported_with_its_violations_never_silently()
     {
         var set = SyntheticUnitSet.Draw(Feeder33, 1);
