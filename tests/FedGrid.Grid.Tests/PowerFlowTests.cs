@@ -94,6 +94,10 @@ public sealed class PowerFlowTests
         LimitViolation ov = Assert.Single(v, x => x.Kind == ViolationKind.OverVoltage && x.Element == "a");
         Assert.Equal(1.07, ov.Value, 12);
         Assert.Equal(1.05, ov.Limit);
+
+        // The allocation-free count applies the same rule as the list.
+        Assert.Equal(v.Count, r.CountViolations(f.Network));
+        Assert.Equal(r.FindViolations(f, 0.5).Count, r.CountViolations(f.Network, 0.5));
     }
 
     [Fact]
@@ -102,5 +106,6 @@ public sealed class PowerFlowTests
         Feeder f = FeederFile.Parse(FeederFileTests.SmallFeeder, "small.json");
         PowerFlowResult r = new AcPowerFlow(f.Network).SolveBaseCase();
         Assert.Empty(r.FindViolations(f));
+        Assert.Equal(0, r.CountViolations(f.Network));
     }
 }

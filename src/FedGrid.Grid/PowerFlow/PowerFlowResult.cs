@@ -101,26 +101,64 @@ public sealed class PowerFlowResult
     /// </summary>
     public IReadOnlyList<LimitViolation> FindViolations(Feeder feeder, double tolerancePu = 1e-6)
     {
-        var net = feeder.Network;
         var list = new List<LimitViolation>();
+        VisitViolations(feeder.Network, tolerancePu, (kind, bus) => list.Add(Describe(feeder, kind, bus)));
+        return list;
+    }
+
+    /// <summary>
+    /// How many limits <see cref="FindViolations"/> would list, counted without allocating
+    /// (for per-slot use in long simulations).
+    /// </summary>
+    public int CountViolations(RadialNetwork network, double tolerancePu = 1e-6)
+    {
+        int count = 0;
+        int n = network.BusCount;
+        for (int i = 0; i < n; i++)
+        {
+            if (IsUnderVoltage(network, i, tolerancePu)) count++;
+            if (IsOverVoltage(network, i, tolerancePu)) count++;
+            if (IsOverCurrent(network, i, tolerancePu)) count++;
+        }
+        if (IsOverImport(network, tolerancePu)) count++;
+        return count;
+    }
+
+    private void VisitViolations(RadialNetwork net, double tol, Action<ViolationKind, int> found)
+    {
         for (int i = 0; i < net.BusCount; i++)
         {
-            string id = feeder.Buses[i].Id;
-            if (VoltagePu[i] < net.VMinPu[i] - tolerancePu)
-                list.Add(new LimitViolation(ViolationKind.UnderVoltage, id, VoltagePu[i], net.VMinPu[i], "pu"));
-            if (VoltagePu[i] > net.VMaxPu[i] + tolerancePu)
-                list.Add(new LimitViolation(ViolationKind.OverVoltage, id, VoltagePu[i], net.VMaxPu[i], "pu"));
-            if (net.Parent[i] >= 0 && CurrentPu[i] > net.CurrentLimitPu[i] * (1 + tolerancePu))
-            {
-                Line line = feeder.Lines[net.ParentLine[i]];
-                list.Add(new LimitViolation(ViolationKind.LineOverCurrent, $"{line.From}-{line.To}",
-                    CurrentPu[i] * net.CurrentBaseA[i], line.AmpacityA, "A"));
-            }
+            if (IsUnderVoltage(net, i, tol)) found(ViolationKind.UnderVoltage, i);
+            if (IsOverVoltage(net, i, tol)) found(ViolationKind.OverVoltage, i);
+            if (IsOverCurrent(net, i, tol)) found(ViolationKind.LineOverCurrent, i);
         }
-        if (SubstationPPu > net.ImportLimitPu + tolerancePu)
-            list.Add(new LimitViolation(ViolationKind.SubstationOverImport, feeder.Substation.SlackBus,
-                net.ToKw(SubstationPPu), feeder.Substation.ImportLimitKw, "kW"));
-        return list;
+        if (IsOverImport(net, tol)) found(ViolationKind.SubstationOverImport, net.SlackIndex);
+    }
+
+    private bool IsUnderVoltage(RadialNetwork net, int i, double tol) => VoltagePu[i] < net.VMinPu[i] - tol;
+
+    private bool IsOverVoltage(RadialNetwork net, int i, double tol) => VoltagePu[i] > net.VMaxPu[i] + tol;
+
+    private bool IsOverCurrent(RadialNetwork net, int i, double tol) =>
+        net.Parent[i] >= 0 && CurrentPu[i] > net.CurrentLimitPu[i] * (1 + tol);
+
+    private bool IsOverImport(RadialNetwork net, double tol) => SubstationPPu > net.ImportLimitPu + tol;
+
+    private LimitViolation Describe(Feeder feeder, ViolationKind kind, int i)
+    {
+        var net = feeder.Network;
+        switch (kind)
+        {
+            case ViolationKind.UnderVoltage:
+                return new LimitViolation(kind, feeder.Buses[i].Id, VoltagePu[i], net.VMinPu[i], "pu");
+            case ViolationKind.OverVoltage:
+                return new LimitViolation(kind, feeder.Buses[i].Id, VoltagePu[i], net.VMaxPu[i], "pu");
+            case ViolationKind.LineOverCurrent:
+                Line line = feeder.Lines[net.ParentLine[i]];
+                return new LimitViolation(kind, $"{line.From}-{line.To}", CurrentPu[i] * net.CurrentBaseA[i], line.AmpacityA, "A");
+            default:
+                return new LimitViolation(kind, feeder.Substation.SlackBus, net.ToKw(SubstationPPu), feeder.Substation.ImportLimitKw, "kW");
+        }
     }
 }
 

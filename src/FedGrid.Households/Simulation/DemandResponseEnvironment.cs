@@ -61,7 +61,7 @@ public sealed class StepResult
     public double MinVoltagePu => PowerFlow.MinVoltagePu;
 
     /// <summary>
-    /// Number of limits broken (same rule and tolerance as <see cref="PowerFlowResult.FindViolations"/>, which lists them;
+    /// Number of limits broken (<see cref="PowerFlowResult.CountViolations"/>: the rule and tolerance of <see cref="PowerFlowResult.FindViolations"/>, which lists them;
     /// call it only when this is non-zero to stay allocation-free).
     /// </summary>
     public int ViolationCount { get; internal set; }
@@ -353,7 +353,7 @@ public sealed class DemandResponseEnvironment
         result.TotalDiscomfortDollars = discomfortSum;
         result.SubstationImportKw = net.ToKw(result.PowerFlow.SubstationPPu);
         result.LossKw = net.ToKw(result.PowerFlow.LossPu);
-        result.ViolationCount = CountViolations(result.PowerFlow);
+        result.ViolationCount = result.PowerFlow.CountViolations(_scenario.Feeder.Network);
 
         _slot++;
         if (!Done) ComputeBounds();
@@ -415,22 +415,6 @@ public sealed class DemandResponseEnvironment
             _min[i] = _appMin[o] + _appMin[o + 1] + _appMin[o + 2];
             _des[i] = _appDes[o] + _appDes[o + 1] + _appDes[o + 2];
         }
-    }
-
-    // The rule of PowerFlowResult.FindViolations (tolerance 1e-6), counted without building the list.
-    private int CountViolations(PowerFlowResult pf)
-    {
-        const double tol = 1e-6;
-        var net = _scenario.Feeder.Network;
-        int count = 0;
-        for (int b = 0; b < net.BusCount; b++)
-        {
-            if (pf.VoltagePu[b] < net.VMinPu[b] - tol) count++;
-            if (pf.VoltagePu[b] > net.VMaxPu[b] + tol) count++;
-            if (net.Parent[b] >= 0 && pf.CurrentPu[b] > net.CurrentLimitPu[b] * (1 + tol)) count++;
-        }
-        if (pf.SubstationPPu > net.ImportLimitPu + tol) count++;
-        return count;
     }
 }
 
