@@ -1,5 +1,3 @@
-using FedGrid.Learning.Randomness;
-
 namespace FedGrid.Learning.Tabular;
 
 /// <summary>
@@ -7,28 +5,20 @@ namespace FedGrid.Learning.Tabular;
 /// say A, and sets A(s,a) ← A(s,a) + α·(c + γ·B(s', argmin_b A(s',b)) − A(s,a)). Acting is ε-greedy on A + B.
 /// Visit counts, and so learning rates, are kept per table.
 /// </summary>
-public sealed class DoubleQLearner : ITabularLearner
+public sealed class DoubleQLearner : TabularLearnerBase
 {
     private readonly double[] _a;
     private readonly double[] _b;
     private readonly long[] _visitsA;
     private readonly long[] _visitsB;
-    private readonly TabularOptions _options;
-    private readonly LearningRandom _random;
 
     /// <summary>Creates a learner with both tables at <see cref="TabularOptions.InitialValue"/>.</summary>
     /// <param name="stateCount">Discrete states.</param>
     /// <param name="actionCount">Discrete actions.</param>
     /// <param name="options">Settings.</param>
     public DoubleQLearner(int stateCount, int actionCount, TabularOptions options)
+        : base(stateCount, actionCount, options)
     {
-        ArgumentNullException.ThrowIfNull(options);
-        options.Validate();
-        ArgumentOutOfRangeException.ThrowIfLessThan(stateCount, 1);
-        ArgumentOutOfRangeException.ThrowIfLessThan(actionCount, 1);
-        StateCount = stateCount;
-        ActionCount = actionCount;
-        _options = options;
         int n = checked(stateCount * actionCount);
         _a = new double[n];
         _b = new double[n];
@@ -36,27 +26,10 @@ public sealed class DoubleQLearner : ITabularLearner
         Array.Fill(_b, options.InitialValue);
         _visitsA = new long[n];
         _visitsB = new long[n];
-        _random = new LearningRandom(options.Seed);
     }
 
     /// <inheritdoc />
-    public int StateCount { get; }
-
-    /// <inheritdoc />
-    public int ActionCount { get; }
-
-    /// <inheritdoc />
-    public long StepCount { get; private set; }
-
-    /// <inheritdoc />
-    public int SelectAction(int state)
-    {
-        double eps = _options.Epsilon.ValueAt(StepCount);
-        return _random.NextDouble() < eps ? _random.NextInt(ActionCount) : GreedyAction(state);
-    }
-
-    /// <inheritdoc />
-    public int GreedyAction(int state)
+    public override int GreedyAction(int state)
     {
         CheckState(state);
         int row = state * ActionCount, best = 0;
@@ -71,24 +44,21 @@ public sealed class DoubleQLearner : ITabularLearner
     }
 
     /// <inheritdoc />
-    public void Update(int state, int action, double cost, int nextState, bool terminal)
+    public override void Update(int state, int action, double cost, int nextState, bool terminal)
     {
-        CheckState(state);
-        ArgumentOutOfRangeException.ThrowIfNegative(action);
-        ArgumentOutOfRangeException.ThrowIfGreaterThanOrEqual(action, ActionCount);
-        bool updateA = _random.NextDouble() < 0.5;
+        int i = Index(state, action);
+        bool updateA = Random.NextDouble() < 0.5;
         double[] own = updateA ? _a : _b, other = updateA ? _b : _a;
         long[] visits = updateA ? _visitsA : _visitsB;
-        int i = state * ActionCount + action;
         double target = cost;
         if (!terminal)
         {
             CheckState(nextState);
             int next = nextState * ActionCount;
             int best = TabularMath.ArgMin(own.AsSpan(next, ActionCount));
-            target += _options.Gamma * other[next + best];
+            target += Options.Gamma * other[next + best];
         }
-        double alpha = _options.LearningRate.ValueAt(visits[i]++);
+        double alpha = Options.LearningRate.ValueAt(visits[i]++);
         own[i] += alpha * (target - own[i]);
         StepCount++;
     }
@@ -97,19 +67,12 @@ public sealed class DoubleQLearner : ITabularLearner
     /// <param name="state">State index.</param>
     /// <param name="action">Action index.</param>
     /// <returns>The estimate.</returns>
-    public double Q(int state, int action)
+    public override double Q(int state, int action)
     {
-        CheckState(state);
-        int i = state * ActionCount + action;
+        int i = Index(state, action);
         return 0.5 * (_a[i] + _b[i]);
     }
 
     /// <inheritdoc />
-    public double Value(int state) => Q(state, GreedyAction(state));
-
-    private void CheckState(int state)
-    {
-        ArgumentOutOfRangeException.ThrowIfNegative(state);
-        ArgumentOutOfRangeException.ThrowIfGreaterThanOrEqual(state, StateCount);
-    }
+    public override double Value(int state) => Q(state, GreedyAction(state));
 }
