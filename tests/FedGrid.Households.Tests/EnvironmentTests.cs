@@ -191,4 +191,23 @@ public class RuleThresholdTests
         public string Name => "steps";
         public double PriceAt(int slot) => (100 - slot) / 100.0;
     }
+
+    [Fact]
+    public void Fixed_loads_are_summed_per_bus_in_feeder_order()
+    {
+        var scenario = DefaultScenario.Create(3, days: 1);
+        var doubled = scenario with { FixedLoads = scenario.FixedLoads.AddRange(scenario.FixedLoads) };
+        var (kw, kvar) = doubled.FixedLoadPerBus();
+        Assert.Equal(scenario.Feeder.Buses.Count, kw.Length);
+        Assert.NotEmpty(scenario.FixedLoads);
+        foreach (FixedBusLoad f in scenario.FixedLoads)
+        {
+            int b = scenario.Feeder.IndexOf(f.BusId);
+            double expectedKw = scenario.FixedLoads.Where(g => g.BusId == f.BusId).Sum(g => g.Kw) * 2;
+            double expectedKvar = scenario.FixedLoads.Where(g => g.BusId == f.BusId).Sum(g => g.Kvar) * 2;
+            Assert.Equal(expectedKw, kw[b], 12);
+            Assert.Equal(expectedKvar, kvar[b], 12);
+        }
+        Assert.Equal(2 * scenario.FixedLoads.Sum(f => f.Kw), kw.Sum(), 9);
+    }
 }

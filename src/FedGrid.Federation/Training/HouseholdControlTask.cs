@@ -139,14 +139,7 @@ public sealed class HouseholdControlTask : IControlTask
             _chargerKw[m] = h.Deferrable?.MaxKw ?? 0;
             units[m] = new FlexibleUnit(h.Id, h.BusId, h.KvarPerKw);
         }
-        _fixedKw = new double[buses];
-        _fixedKvar = new double[buses];
-        foreach (FixedBusLoad f in scenario.FixedLoads)
-        {
-            int b = scenario.Feeder.IndexOf(f.BusId);
-            _fixedKw[b] += f.Kw;
-            _fixedKvar[b] += f.Kvar;
-        }
+        (_fixedKw, _fixedKvar) = scenario.FixedLoadPerBus();
         if (Options.Project)
         {
             _projector = new SetpointProjector(scenario.Feeder, units, options: Options.Projection);

@@ -95,4 +95,19 @@ public sealed record Scenario(string Name, Feeder Feeder, ImmutableArray<Househo
             if (!double.IsFinite(f.Kw) || !double.IsFinite(f.Kvar)) throw new ArgumentException($"scenario '{Name}': fixed load at bus '{f.BusId}' must be finite");
         }
     }
+
+    /// <summary>The scenario's fixed loads summed per bus (indexed as <see cref="Feeder.Buses"/>), kW and kvar.</summary>
+    public (double[] Kw, double[] Kvar) FixedLoadPerBus()
+    {
+        int buses = Feeder.Network.BusCount;
+        var kw = new double[buses];
+        var kvar = new double[buses];
+        foreach (FixedBusLoad f in FixedLoads)
+        {
+            int b = Feeder.IndexOf(f.BusId);
+            kw[b] += f.Kw;
+            kvar[b] += f.Kvar;
+        }
+        return (kw, kvar);
+    }
 }

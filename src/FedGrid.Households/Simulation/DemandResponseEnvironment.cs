@@ -137,14 +137,7 @@ public sealed class DemandResponseEnvironment
             order.CopyTo(_priority, i * Kinds);
         }
         int buses = net.BusCount;
-        _fixedP = new double[buses];
-        _fixedQ = new double[buses];
-        foreach (FixedBusLoad f in scenario.FixedLoads)
-        {
-            int b = scenario.Feeder.IndexOf(f.BusId);
-            _fixedP[b] += f.Kw;
-            _fixedQ[b] += f.Kvar;
-        }
+        (_fixedP, _fixedQ) = scenario.FixedLoadPerBus();
         _busP = new double[buses];
         _busQ = new double[buses];
         _base = new double[_n];
