@@ -13,5 +13,8 @@ internal static class Verbs
         yield return Commands.OptimumCommand.Create();
         yield return Commands.ProjectCommand.Create();
         yield return Commands.AuditCommand.Create();
+        yield return Commands.CoordinatorCommand.Create();
+        yield return Commands.HouseholdCommand.Create();
+        yield return Commands.LaunchCommand.Create();
     }
 }

@@ -95,8 +95,7 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         int n = scenario.Households.Length, features = _task.StateSizePerAgent;
         IProjectionInputsForm form = options.ProjectionForm ?? new HouseholdProjectionInputs();
         FederationOptions fed = options.Federation;
-        var setup = new CoordinatorSetup(scenario.Feeder, scenario.Households.Select(h => h.Id).ToArray(), features,
-            scenario.FixedLoads.Select(f => (f.BusId, f.Kw, f.Kvar)).ToArray(), fed, _scheme, form, options.Projection);
+        CoordinatorSetup setup = CreateCoordinatorSetup(scenario, options, features);
         var (actorShape, criticShape) = Coordinator.Shapes(n, features, fed.Learning);
         if (transcript is null && options.TranscriptPath is not null)
         {
@@ -135,8 +134,32 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         {
             Household h = scenario.Households[m];
             _agents[m] = new HouseholdAgent(new HouseholdIdentity(h.Id, h.BusId, h.KvarPerKw, features), fed, _scheme,
-                LearningRandom.DeriveSeed(fed.Learning.Seed, 0x4000UL + (ulong)m), form);
+                HouseholdSeed(fed, m), form);
         }
+    }
+
+    /// <summary>The seed of household m's agent (its local training stream); every host derives it the same way.</summary>
+    /// <param name="federation">The run's protocol settings.</param>
+    /// <param name="household">Block index m.</param>
+    /// <returns>The seed.</returns>
+    public static ulong HouseholdSeed(FederationOptions federation, int household)
+    {
+        ArgumentNullException.ThrowIfNull(federation);
+        return LearningRandom.DeriveSeed(federation.Learning.Seed, 0x4000UL + (ulong)household);
+    }
+
+    /// <summary>The coordinator's setup for a scenario (roster in household order, feeder, fixed loads, scheme, form); every host builds it the same way.</summary>
+    /// <param name="scenario">The scenario.</param>
+    /// <param name="options">Run settings.</param>
+    /// <param name="features">Features per household.</param>
+    /// <returns>The setup.</returns>
+    public static CoordinatorSetup CreateCoordinatorSetup(Scenario scenario, FederatedRunOptions options, int features)
+    {
+        ArgumentNullException.ThrowIfNull(scenario);
+        ArgumentNullException.ThrowIfNull(options);
+        return new CoordinatorSetup(scenario.Feeder, scenario.Households.Select(h => h.Id).ToArray(), features,
+            scenario.FixedLoads.Select(f => (f.BusId, f.Kw, f.Kvar)).ToArray(), options.Federation, options.Scheme ?? ClearScheme.Plain(),
+            options.ProjectionForm ?? new HouseholdProjectionInputs(), options.Projection);
     }
 
     /// <summary>The coordinator.</summary>

@@ -55,4 +55,22 @@ public static class RunHashes
         }
         return SHA256.HashData(ms.ToArray());
     }
+
+    /// <summary>SHA-256 of a model: the actor's flat parameters then the critic's, each float as its 4 little-endian IEEE-754 bytes (the same bytes give the same hash on every platform).</summary>
+    /// <param name="actor">Actor parameters.</param>
+    /// <param name="critic">Critic parameters.</param>
+    /// <returns>32 bytes.</returns>
+    public static byte[] Model(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic)
+    {
+        var bytes = new byte[4 * (actor.Length + critic.Length)];
+        for (int i = 0; i < actor.Length; i++)
+        {
+            System.Buffers.Binary.BinaryPrimitives.WriteSingleLittleEndian(bytes.AsSpan(4 * i), actor[i]);
+        }
+        for (int i = 0; i < critic.Length; i++)
+        {
+            System.Buffers.Binary.BinaryPrimitives.WriteSingleLittleEndian(bytes.AsSpan(4 * (actor.Length + i)), critic[i]);
+        }
+        return SHA256.HashData(bytes);
+    }
 }

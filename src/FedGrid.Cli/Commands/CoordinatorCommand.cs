@@ -1,0 +1,52 @@
+using System.CommandLine;
+using System.Net;
+using FedGrid.Hosting;
+
+namespace FedGrid.Cli.Commands;
+
+/// <summary><c>fedgrid coordinator</c>: the coordinator host; serves one run to its household processes, then exits (0 when the run completed).</summary>
+internal static class CoordinatorCommand
+{
+    public static Command Create()
+    {
+        var (runOptions, read) = HostOptions.Create(householdsRequired: false);
+        var port = new Option<int>("--port") { Description = "TCP port to listen on (0: any free port, printed)", DefaultValueFactory = _ => 5151 };
+        var address = new Option<string>("--address") { Description = "address to listen on (default 127.0.0.1)", DefaultValueFactory = _ => "127.0.0.1" };
+        var result = new Option<string?>("--result") { Description = "write the run's outcome (JSON) to this file, atomically" };
+        var transcript = new Option<string?>("--transcript") { Description = "write the transcript (everything received, in order) to this file" };
+        var timeout = new Option<double>("--round-timeout") { Description = "seconds a round waits for its uploads (default 60)", DefaultValueFactory = _ => 60 };
+        var json = new Option<bool>("--json") { Description = "print the outcome as JSON" };
+        var insecure = HostOptions.InsecureLoopback();
+        var cmd = new Command("coordinator", "Run the coordinator host of a multi-process federated run (gRPC).");
+        foreach (Option o in runOptions)
+            cmd.Options.Add(o);
+        cmd.Options.Add(port);
+        cmd.Options.Add(address);
+        cmd.Options.Add(result);
+        cmd.Options.Add(transcript);
+        cmd.Options.Add(timeout);
+        cmd.Options.Add(json);
+        cmd.Options.Add(insecure);
+        cmd.SetAction(async (parse, cancel) =>
+        {
+            HostOptions.RequireInsecureLoopback(parse.GetValue(insecure));
+            if (!IPAddress.TryParse(parse.GetValue(address), out IPAddress? ip))
+                throw new UserInputException($"--address: '{parse.GetValue(address)}' is not an IP address");
+            if (!IPAddress.IsLoopback(ip))
+                throw new UserInputException($"--address {ip}: plain text is allowed on loopback only");
+            double seconds = parse.GetValue(timeout);
+            if (!(seconds > 0))
+                throw new UserInputException($"--round-timeout must be positive, got {seconds}");
+            var options = new CoordinatorHostOptions { Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript) };
+            var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), insecureLoopback: true);
+            CoordinatorOutcome outcome = await CoordinatorHost.RunAsync(app, p => Console.Out.WriteLine($"coordinator: listening on {ip}:{p}"), cancel);
+            if (parse.GetValue(result) is { } path)
+                Launcher.WriteOutcome(outcome, path);
+            Console.Out.WriteLine(outcome.Ok
+                ? FormattableString.Invariant($"coordinator: {outcome.Steps} steps, {outcome.Rounds} rounds, {outcome.StepsPerSecond:0.0} steps/s, model {outcome.ModelSha256}")
+                : $"coordinator: run failed: {outcome.Error}");
+            return outcome.Ok ? CliRunner.ExitOk : CliRunner.ExitFailure;
+        });
+        return cmd;
+    }
+}

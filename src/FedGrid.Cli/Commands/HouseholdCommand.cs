@@ -1,0 +1,44 @@
+using System.CommandLine;
+using FedGrid.Hosting;
+using Microsoft.Extensions.Logging;
+
+namespace FedGrid.Cli.Commands;
+
+/// <summary><c>fedgrid household</c>: one household's host (a home gateway); holds only its own data, derived from the scenario, the seed and its id.</summary>
+internal static class HouseholdCommand
+{
+    public static Command Create()
+    {
+        var (runOptions, read) = HostOptions.Create(householdsRequired: false);
+        var id = new Option<string>("--id") { Description = "the household's id (e.g. H01)", Required = true };
+        var coordinator = new Option<string>("--coordinator") { Description = "the coordinator's address, e.g. http://127.0.0.1:5151", Required = true };
+        var insecure = HostOptions.InsecureLoopback();
+        var cmd = new Command("household", "Run one household host of a multi-process federated run (gRPC client).");
+        foreach (Option o in runOptions)
+            cmd.Options.Add(o);
+        cmd.Options.Add(id);
+        cmd.Options.Add(coordinator);
+        cmd.Options.Add(insecure);
+        cmd.SetAction(async (parse, cancel) =>
+        {
+            HostOptions.RequireInsecureLoopback(parse.GetValue(insecure));
+            if (!Uri.TryCreate(parse.GetValue(coordinator), UriKind.Absolute, out Uri? address) || address.Scheme != "http")
+                throw new UserInputException($"--coordinator: '{parse.GetValue(coordinator)}' is not an http:// address");
+            if (!address.IsLoopback)
+                throw new UserInputException($"--coordinator {address}: plain text is allowed on loopback only");
+            using ILoggerFactory logs = LoggerFactory.Create(b => b.AddSimpleConsole(o => { o.SingleLine = true; o.TimestampFormat = "HH:mm:ss.fff "; }).SetMinimumLevel(LogLevel.Information));
+            HouseholdHost host;
+            try
+            {
+                host = new HouseholdHost(read(parse), parse.GetValue(id)!, logs.CreateLogger("FedGrid.Household"));
+            }
+            catch (ArgumentException e)
+            {
+                throw new UserInputException($"--id: {e.Message}");
+            }
+            await host.RunAsync(address, cancel);
+            return CliRunner.ExitOk;
+        });
+        return cmd;
+    }
+}

@@ -1,0 +1,437 @@
+using System.Diagnostics;
+using System.Threading.Channels;
+using FedGrid.Federation.Coordination;
+using FedGrid.Federation.Runs;
+using FedGrid.Federation.Schemes;
+using FedGrid.Federation.Transcripts;
+using FedGrid.Federation.Wire;
+using FedGrid.Households.Scenarios;
+using Grpc.Core;
+using Microsoft.Extensions.Logging;
+
+namespace FedGrid.Hosting;
+
+/// <summary>Settings of the coordinator host.</summary>
+public sealed record CoordinatorHostOptions
+{
+    /// <summary>The run every process agrees on.</summary>
+    public required HostedRunSettings Run { get; init; }
+
+    /// <summary>How long a round waits for its uploads before it closes with what arrived.</summary>
+    public TimeSpan RoundTimeout { get; init; } = TimeSpan.FromSeconds(60);
+
+    /// <summary>Transcript file to write, or null.</summary>
+    public string? TranscriptPath { get; init; }
+}
+
+/// <summary>One household's open session.</summary>
+internal sealed class HouseholdSession(int index, string id)
+{
+    public int Index { get; } = index;
+
+    public string Id { get; } = id;
+
+    public Channel<CoordinatorMessage> Outgoing { get; } = Channel.CreateUnbounded<CoordinatorMessage>(new UnboundedChannelOptions { SingleReader = true });
+
+    /// <summary>Set when the coordinator ends this session with an error status.</summary>
+    public TaskCompletionSource<Status> Fault { get; } = new(TaskCreationOptions.RunContinuationsAsynchronously);
+}
+
+/// <summary>
+/// The coordinator process's core: owns the <see cref="Coordinator"/> state machine and feeds it from one queue on one
+/// thread. Messages of a phase (joins, a step's partial sums, its projection inputs, a round's uploads) are held until
+/// every expected household has sent its own, then delivered in household order — the order of the in-process runner,
+/// so the sums, the aggregate and the transcript are the same bit for bit whatever order the network delivered them.
+/// A message the protocol does not expect now ends its sender's session with FAILED_PRECONDITION before the state
+/// machine sees it.
+/// </summary>
+public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
+{
+    private readonly record struct Inbound(HouseholdSession? Session, HouseholdMessage? Message, bool Disconnected, int TimeoutRound);
+
+    private readonly ILogger _log;
+    private readonly CoordinatorHostOptions _options;
+    private readonly Scenario _scenario;
+    private readonly Coordinator _coordinator;
+    private readonly TranscriptWriter? _writer;
+    private readonly Channel<Inbound> _inbox = Channel.CreateUnbounded<Inbound>(new UnboundedChannelOptions { SingleReader = true });
+    private readonly HouseholdSession?[] _sessions;
+    private readonly HouseholdMessage?[] _pending;
+    private readonly bool[] _selected;
+    private readonly Dictionary<string, int> _roster = new(StringComparer.Ordinal);
+    private readonly TaskCompletionSource<CoordinatorOutcome> _done = new(TaskCreationOptions.RunContinuationsAsynchronously);
+    private readonly Stopwatch _watch = new();
+    private readonly object _gate = new();
+    private readonly int _n;
+    private readonly long _totalSteps;
+    private int _pendingCount, _expectedUploads, _connected;
+    private long _wireBytes;
+    private volatile bool _finished;
+
+    /// <summary>Sets up the coordinator for the run.</summary>
+    /// <param name="options">Settings.</param>
+    /// <param name="log">Logger.</param>
+    public CoordinatorEngine(CoordinatorHostOptions options, ILogger log)
+    {
+        ArgumentNullException.ThrowIfNull(options);
+        ArgumentNullException.ThrowIfNull(log);
+        _options = options;
+        _log = log;
+        _scenario = options.Run.CreateScenario();
+        FederatedRunOptions run = options.Run.CreateRunOptions();
+        int features = Federation.Training.HouseholdControlTask.FeaturesPerHousehold;
+        _n = _scenario.Households.Length;
+        _totalSteps = _scenario.SlotCount;
+        for (int m = 0; m < _n; m++)
+        {
+            _roster[_scenario.Households[m].Id] = m;
+        }
+        if (options.TranscriptPath is not null)
+        {
+            var (a, c) = Coordinator.Shapes(_n, features, run.Federation.Learning);
+            _writer = TranscriptWriter.Create(options.TranscriptPath, new TranscriptHeader
+            {
+                FormatVersion = TranscriptFormat.Version,
+                Scheme = run.Scheme!.Name,
+                Seed = run.Federation.Learning.Seed,
+                FeederSha256 = Google.Protobuf.ByteString.CopyFrom(RunHashes.Feeder(_scenario.Feeder)),
+                ScenarioSha256 = Google.Protobuf.ByteString.CopyFrom(RunHashes.Scenario(_scenario)),
+                ActorShape = Federation.Protocol.ShapeCodec.ToSpec(a),
+                CriticShape = Federation.Protocol.ShapeCodec.ToSpec(c),
+                HouseholdCount = _n,
+                StepsPerRound = run.Federation.StepsPerRound,
+                ProjectionInputs = "household",
+                FeederName = _scenario.Feeder.Name,
+                ScenarioName = _scenario.Name,
+                Participation = run.Federation.Participation,
+                MinQuorum = run.Federation.MinQuorum,
+                Writer = "FedGrid coordinator host " + (typeof(CoordinatorEngine).Assembly.GetName().Version?.ToString(3) ?? "0"),
+            });
+        }
+        _coordinator = new Coordinator(InProcessFederation.CreateCoordinatorSetup(_scenario, run, features), _writer ?? (ITranscriptSink)NullTranscript.Instance);
+        Checks = new MessageChecks(_coordinator.ActorShape.HiddenSizes[0], _coordinator.CriticShape.HiddenSizes[0]);
+        _sessions = new HouseholdSession?[_n];
+        _pending = new HouseholdMessage?[_n];
+        _selected = new bool[_n];
+    }
+
+    /// <summary>The stateless message checks of this run.</summary>
+    public MessageChecks Checks { get; }
+
+    /// <summary>Completes when the run is over (or failed).</summary>
+    public Task<CoordinatorOutcome> Completion => _done.Task;
+
+    /// <summary>The run's state now.</summary>
+    /// <returns>A snapshot.</returns>
+    public Hosting.Wire.RunStatus Status()
+    {
+        lock (_gate)
+        {
+            var s = new Hosting.Wire.RunStatus
+            {
+                HouseholdCount = _n,
+                Connected = _connected,
+                Round = _coordinator.Round,
+                Step = _coordinator.Step,
+                TotalSteps = _totalSteps,
+                Finished = _finished,
+                Rounds = _coordinator.AggregatedRounds + _coordinator.FailedRounds,
+                WireBytes = _wireBytes,
+                RunSeconds = _watch.Elapsed.TotalSeconds,
+            };
+            if (_finished)
+            {
+                s.ModelSha256 = Google.Protobuf.ByteString.CopyFrom(RunHashes.Model(_coordinator.Actor.Parameters, _coordinator.Critic.Parameters));
+            }
+            return s;
+        }
+    }
+
+    /// <summary>Opens a session for a join request (checks roster and duplicates; the join itself goes through the queue).</summary>
+    internal HouseholdSession Open(JoinRequest join)
+    {
+        if (!_roster.TryGetValue(join.HouseholdId, out int m))
+        {
+            _log.LogWarning("rejected join: household '{Id}' is not on the roster", join.HouseholdId);
+            throw new RpcException(new Status(StatusCode.NotFound, $"household '{join.HouseholdId}' is not on the roster"));
+        }
+        lock (_gate)
+        {
+            if (_sessions[m] is not null || _coordinator.Phase != CoordinatorPhase.Admitting)
+            {
+                _log.LogWarning("rejected join: household '{Id}' already has a session", join.HouseholdId);
+                throw new RpcException(new Status(StatusCode.AlreadyExists, $"household '{join.HouseholdId}' already joined"));
+            }
+            var s = new HouseholdSession(m, join.HouseholdId);
+            _sessions[m] = s;
+            _connected++;
+            return s;
+        }
+    }
+
+    /// <summary>Queues a checked message from a session.</summary>
+    internal void Post(HouseholdSession session, HouseholdMessage message) => _inbox.Writer.TryWrite(new Inbound(session, message, false, -1));
+
+    /// <summary>Queues the end of a session.</summary>
+    internal void Closed(HouseholdSession session) => _inbox.Writer.TryWrite(new Inbound(session, null, true, -1));
+
+    /// <summary>Runs the queue until the run is over.</summary>
+    /// <param name="cancel">Stops the loop.</param>
+    public async Task RunAsync(CancellationToken cancel)
+    {
+        try
+        {
+            await foreach (Inbound item in _inbox.Reader.ReadAllAsync(cancel))
+            {
+                if (item.TimeoutRound >= 0)
+                {
+                    OnTimeout(item.TimeoutRound);
+                }
+                else if (item.Disconnected)
+                {
+                    OnClosed(item.Session!);
+                }
+                else
+                {
+                    OnMessage(item.Session!, item.Message!);
+                }
+                if (_done.Task.IsCompleted)
+                {
+                    break;
+                }
+            }
+        }
+        catch (OperationCanceledException)
+        {
+            _done.TrySetResult(Outcome(false, "cancelled"));
+        }
+        catch (Exception e)
+        {
+            _log.LogError(e, "coordinator failed");
+            _done.TrySetResult(Outcome(false, e.Message));
+        }
+        finally
+        {
+            foreach (HouseholdSession? s in _sessions)
+            {
+                s?.Outgoing.Writer.TryComplete();
+            }
+        }
+    }
+
+    private void OnMessage(HouseholdSession session, HouseholdMessage message)
+    {
+        if (_finished)
+        {
+            Reject(session, StatusCode.FailedPrecondition, $"the run is over; {message.BodyCase} from household {session.Index} not taken");
+            return;
+        }
+        int m = session.Index;
+        string? wrong = Expected(m, message);
+        if (wrong is not null)
+        {
+            Reject(session, StatusCode.FailedPrecondition, wrong);
+            return;
+        }
+        Interlocked.Add(ref _wireBytes, message.CalculateSize());
+        _pending[m] = message;
+        _pendingCount++;
+        int needed = _coordinator.Phase == CoordinatorPhase.CollectingUploads ? _expectedUploads : _n;
+        if (_pendingCount == needed)
+        {
+            DeliverPending();
+        }
+    }
+
+    /// <summary>Why the message is not one the protocol expects from household m now, or null.</summary>
+    private string? Expected(int m, HouseholdMessage message)
+    {
+        if (_pending[m] is not null)
+        {
+            return $"household {m} sent a second {message.BodyCase} in the same phase (replayed or out of order)";
+        }
+        CoordinatorPhase phase = _coordinator.Phase;
+        int round = _coordinator.Round;
+        long next = _coordinator.Step + 1;
+        return message.BodyCase switch
+        {
+            HouseholdMessage.BodyOneofCase.Join when phase == CoordinatorPhase.Admitting => null,
+            HouseholdMessage.BodyOneofCase.PartialSums when phase == CoordinatorPhase.CollectingPartialSums =>
+                message.PartialSums.Round == round && message.PartialSums.Step == next ? null
+                    : $"partial sums from household {m} for round {message.PartialSums.Round} step {message.PartialSums.Step}; round {round} step {next} is open",
+            HouseholdMessage.BodyOneofCase.ProjectionInputs when phase == CoordinatorPhase.CollectingProjectionInputs =>
+                message.ProjectionInputs.Round == round && message.ProjectionInputs.Step == _coordinator.Step ? null
+                    : $"projection inputs from household {m} for round {message.ProjectionInputs.Round} step {message.ProjectionInputs.Step}; round {round} step {_coordinator.Step} is open",
+            HouseholdMessage.BodyOneofCase.Upload when phase == CoordinatorPhase.CollectingUploads =>
+                message.Upload.Round != round ? $"upload from household {m} for round {message.Upload.Round}; round {round} is collecting"
+                    : !_selected[m] ? $"household {m} uploaded without being called in round {round}" : null,
+            _ => $"{message.BodyCase} from household {m} while the coordinator is {phase}",
+        };
+    }
+
+    private void DeliverPending()
+    {
+        var batch = new List<HouseholdMessage>(_pendingCount);
+        for (int h = 0; h < _n; h++)
+        {
+            if (_pending[h] is { } p)
+            {
+                batch.Add(p);
+                _pending[h] = null;
+            }
+        }
+        _pendingCount = 0;
+        bool admitting = _coordinator.Phase == CoordinatorPhase.Admitting;
+        lock (_gate)
+        {
+            foreach (HouseholdMessage p in batch)
+            {
+                _coordinator.Receive(p, this);
+            }
+            if (admitting)
+            {
+                _watch.Restart(); // the run's clock starts when every household is admitted
+            }
+        }
+        AfterDelivery();
+    }
+
+    private void AfterDelivery()
+    {
+        if (_coordinator.Phase == CoordinatorPhase.CollectingUploads && _expectedUploads == 0)
+        {
+            lock (_gate)
+            {
+                _coordinator.CloseRound(this);
+            }
+        }
+        if (_coordinator.Step == _totalSteps - 1 && _coordinator.Phase == CoordinatorPhase.CollectingPartialSums)
+        {
+            lock (_gate)
+            {
+                _coordinator.Finish();
+                _writer?.Dispose();
+                _watch.Stop();
+                _finished = true;
+            }
+            _log.LogInformation("run finished: {Steps} steps, {Rounds} rounds in {Seconds:0.00} s", _totalSteps,
+                _coordinator.AggregatedRounds + _coordinator.FailedRounds, _watch.Elapsed.TotalSeconds);
+            _done.TrySetResult(Outcome(true, null));
+        }
+    }
+
+    private void OnTimeout(int round)
+    {
+        if (_coordinator.Phase != CoordinatorPhase.CollectingUploads || _coordinator.Round != round)
+        {
+            return;
+        }
+        _log.LogWarning("round {Round}: upload deadline passed with {Arrived} of {Expected} uploads", round, _pendingCount, _expectedUploads);
+        _expectedUploads = _pendingCount;
+        if (_pendingCount > 0)
+        {
+            DeliverPending();
+        }
+        if (_coordinator.Phase == CoordinatorPhase.CollectingUploads && _coordinator.Round == round)
+        {
+            lock (_gate)
+            {
+                _coordinator.CloseRound(this);
+            }
+            AfterDelivery();
+        }
+    }
+
+    private void OnClosed(HouseholdSession session)
+    {
+        lock (_gate)
+        {
+            if (_sessions[session.Index] == session)
+            {
+                _sessions[session.Index] = null;
+                _connected--;
+            }
+        }
+        session.Outgoing.Writer.TryComplete();
+        if (_finished)
+        {
+            return;
+        }
+        _log.LogError("household {Index} ('{Id}') left before the run was over", session.Index, session.Id);
+        _done.TrySetResult(Outcome(false, $"household '{session.Id}' left before the run was over"));
+    }
+
+    private void Reject(HouseholdSession session, StatusCode code, string detail)
+    {
+        _log.LogWarning("rejected message ({Code}): {Detail}", code, detail);
+        session.Fault.TrySetResult(new Status(code, detail));
+    }
+
+    /// <inheritdoc />
+    void ICoordinatorOutbox.Send(CoordinatorMessage message)
+    {
+        // The state machine reuses its message objects: each recipient gets its own copy now.
+        CoordinatorMessage copy = message.Clone();
+        int size = copy.CalculateSize();
+        if (copy.BodyCase == CoordinatorMessage.BodyOneofCase.Training)
+        {
+            if (copy.Training.Round == _coordinator.Round && copy.HouseholdIndex == 0)
+            {
+                Array.Clear(_selected);
+                _expectedUploads = 0;
+                int round = copy.Training.Round;
+                _ = Task.Delay(_options.RoundTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(null, null, false, round)), TaskScheduler.Default);
+            }
+            if (copy.Training.Selected)
+            {
+                _selected[copy.HouseholdIndex] = true;
+                _expectedUploads++;
+            }
+        }
+        if (copy.HouseholdIndex == -1)
+        {
+            foreach (HouseholdSession? s in _sessions)
+            {
+                if (s is not null)
+                {
+                    Interlocked.Add(ref _wireBytes, size);
+                    s.Outgoing.Writer.TryWrite(copy);
+                }
+            }
+        }
+        else if (_sessions[copy.HouseholdIndex] is { } s)
+        {
+            Interlocked.Add(ref _wireBytes, size);
+            s.Outgoing.Writer.TryWrite(copy);
+        }
+    }
+
+    private CoordinatorOutcome Outcome(bool ok, string? error) => new(ok, error, _coordinator.AggregatedRounds + _coordinator.FailedRounds,
+        _coordinator.AggregatedRounds, _coordinator.FailedRounds, Math.Max(0, _coordinator.Step + 1), _n,
+        ok ? Convert.ToHexStringLower(RunHashes.Model(_coordinator.Actor.Parameters, _coordinator.Critic.Parameters)) : "",
+        _watch.Elapsed.TotalSeconds, Interlocked.Read(ref _wireBytes));
+
+    /// <inheritdoc />
+    public void Dispose() => _writer?.Dispose();
+}
+
+/// <summary>How a hosted run ended, as the coordinator saw it.</summary>
+/// <param name="Ok">Whether every step ran.</param>
+/// <param name="Error">Why not, or null.</param>
+/// <param name="Rounds">Rounds closed.</param>
+/// <param name="AggregatedRounds">Rounds aggregated.</param>
+/// <param name="FailedRounds">Rounds whose quorum failed.</param>
+/// <param name="Steps">Decision steps done.</param>
+/// <param name="Households">Households on the roster.</param>
+/// <param name="ModelSha256">Hex SHA-256 of the final model (<see cref="RunHashes.Model"/>), empty when not ok.</param>
+/// <param name="RunSeconds">Seconds from the admission of every household to the end of the last step.</param>
+/// <param name="WireBytes">Protobuf bytes of the envelopes both ways, per household (a broadcast once per recipient).</param>
+public sealed record CoordinatorOutcome(bool Ok, string? Error, int Rounds, int AggregatedRounds, int FailedRounds, long Steps, int Households,
+    string ModelSha256, double RunSeconds, long WireBytes)
+{
+    /// <summary>Decision steps per second of wall time.</summary>
+    public double StepsPerSecond => RunSeconds > 0 ? Steps / RunSeconds : 0;
+
+    /// <summary>Wire bytes per household per decision step.</summary>
+    public double BytesPerHouseholdPerStep => WireBytes / (double)(Households * Math.Max(1, Steps));
+}

@@ -1,0 +1,189 @@
+using System.Net;
+using FedGrid.Federation.Wire;
+using FedGrid.Hosting.Wire;
+using Grpc.Core;
+using Microsoft.AspNetCore.Builder;
+using Microsoft.AspNetCore.Hosting;
+using Microsoft.AspNetCore.Server.Kestrel.Core;
+using Microsoft.Extensions.DependencyInjection;
+using Microsoft.Extensions.Hosting;
+using Microsoft.Extensions.Logging;
+
+namespace FedGrid.Hosting;
+
+/// <summary>The gRPC service of <c>hosting.proto</c> over a <see cref="CoordinatorEngine"/>.</summary>
+/// <param name="engine">The engine.</param>
+/// <param name="log">Logger.</param>
+public sealed class FederationHostService(CoordinatorEngine engine, ILogger<FederationHostService> log) : FederationHost.FederationHostBase
+{
+    /// <inheritdoc />
+    public override Task<RunStatus> Status(StatusRequest request, ServerCallContext context) => Task.FromResult(engine.Status());
+
+    /// <inheritdoc />
+    public override async Task Session(IAsyncStreamReader<HouseholdMessage> requestStream, IServerStreamWriter<CoordinatorMessage> responseStream, ServerCallContext context)
+    {
+        ArgumentNullException.ThrowIfNull(requestStream);
+        ArgumentNullException.ThrowIfNull(responseStream);
+        ArgumentNullException.ThrowIfNull(context);
+        CancellationToken cancel = context.CancellationToken;
+        if (!await requestStream.MoveNext(cancel))
+        {
+            return;
+        }
+        HouseholdMessage first = requestStream.Current;
+        if (first.BodyCase != HouseholdMessage.BodyOneofCase.Join)
+        {
+            throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"a session starts with a join request, not {first.BodyCase}")));
+        }
+        try
+        {
+            engine.Checks.Check(first);
+        }
+        catch (RpcException e)
+        {
+            throw Log(e);
+        }
+        HouseholdSession session = engine.Open(first.Join);
+        log.LogInformation("household '{Id}' connected as index {Index} from {Peer}", session.Id, session.Index, context.Peer);
+        engine.Post(session, first);
+        using var stop = CancellationTokenSource.CreateLinkedTokenSource(cancel);
+        Task writer = WriteAsync(session, responseStream, stop.Token);
+        Task reader = ReadAsync(session, requestStream, stop.Token);
+        try
+        {
+            Task ended = await Task.WhenAny(writer, reader, session.Fault.Task);
+            if (ended == session.Fault.Task)
+            {
+                throw new RpcException(session.Fault.Task.Result);
+            }
+            if (ended == reader)
+            {
+                await reader; // throws a check failure
+                await writer; // the household closed its side: send what is left
+            }
+            else
+            {
+                await writer;
+            }
+        }
+        finally
+        {
+            await stop.CancelAsync();
+            engine.Closed(session);
+        }
+    }
+
+    private async Task ReadAsync(HouseholdSession session, IAsyncStreamReader<HouseholdMessage> requests, CancellationToken cancel)
+    {
+        while (await requests.MoveNext(cancel))
+        {
+            HouseholdMessage m = requests.Current;
+            try
+            {
+                engine.Checks.Check(m);
+            }
+            catch (RpcException e)
+            {
+                throw Log(e);
+            }
+            if (m.HouseholdIndex != session.Index)
+            {
+                throw Log(new RpcException(new Status(StatusCode.PermissionDenied,
+                    $"session of household '{session.Id}' (index {session.Index}) sent a message as index {m.HouseholdIndex}")));
+            }
+            if (m.BodyCase == HouseholdMessage.BodyOneofCase.Join)
+            {
+                throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"household '{session.Id}' sent a second join request")));
+            }
+            engine.Post(session, m);
+        }
+    }
+
+    private static async Task WriteAsync(HouseholdSession session, IServerStreamWriter<CoordinatorMessage> responses, CancellationToken cancel)
+    {
+        await foreach (CoordinatorMessage m in session.Outgoing.Reader.ReadAllAsync(cancel))
+        {
+            await responses.WriteAsync(m, cancel);
+        }
+    }
+
+    private RpcException Log(RpcException e)
+    {
+        log.LogWarning("rejected message ({Code}): {Detail}", e.StatusCode, e.Status.Detail);
+        return e;
+    }
+}
+
+/// <summary>The coordinator process: an ASP.NET Core generic host serving <see cref="FederationHostService"/> until the run ends.</summary>
+public static class CoordinatorHost
+{
+    /// <summary>Builds the host on <paramref name="address"/>:<paramref name="port"/> (0: any free port).</summary>
+    /// <param name="options">Settings.</param>
+    /// <param name="address">Address to listen on.</param>
+    /// <param name="port">Port.</param>
+    /// <param name="insecureLoopback">Plain-text HTTP/2; only allowed on a loopback address.</param>
+    /// <param name="logging">Extra logging set-up, or null.</param>
+    /// <returns>The application (not started).</returns>
+    public static WebApplication Build(CoordinatorHostOptions options, IPAddress address, int port, bool insecureLoopback, Action<ILoggingBuilder>? logging = null)
+    {
+        ArgumentNullException.ThrowIfNull(options);
+        ArgumentNullException.ThrowIfNull(address);
+        if (!insecureLoopback)
+        {
+            throw new ArgumentException("mutual TLS is not available yet: run on loopback with the insecure-loopback option");
+        }
+        if (!IPAddress.IsLoopback(address))
+        {
+            throw new ArgumentException($"plain-text transport is allowed on loopback only, not on {address}");
+        }
+        WebApplicationBuilder builder = WebApplication.CreateSlimBuilder();
+        builder.Logging.ClearProviders();
+        builder.Logging.AddSimpleConsole(o => { o.SingleLine = true; o.TimestampFormat = "HH:mm:ss.fff "; });
+        builder.Logging.SetMinimumLevel(LogLevel.Information);
+        builder.Logging.AddFilter("Microsoft", LogLevel.Warning);
+        builder.Logging.AddFilter("Grpc", LogLevel.Warning);
+        logging?.Invoke(builder.Logging);
+        builder.WebHost.ConfigureKestrel(k => k.Listen(address, port, l => l.Protocols = HttpProtocols.Http2));
+        builder.Services.AddGrpc(g =>
+        {
+            g.MaxReceiveMessageSize = MessageChecks.MaxMessageBytes;
+            g.MaxSendMessageSize = null;
+            g.EnableDetailedErrors = true;
+        });
+        builder.Services.AddSingleton(options);
+        builder.Services.AddSingleton(sp => new CoordinatorEngine(options, sp.GetRequiredService<ILoggerFactory>().CreateLogger("FedGrid.Coordinator")));
+        WebApplication app = builder.Build();
+        app.MapGrpcService<FederationHostService>();
+        return app;
+    }
+
+    /// <summary>Runs the coordinator until the run is over or <paramref name="cancel"/> fires.</summary>
+    /// <param name="app">From <see cref="Build"/>.</param>
+    /// <param name="listening">Called with the bound port once listening, or null.</param>
+    /// <param name="cancel">Stops the run.</param>
+    /// <returns>The outcome.</returns>
+    public static async Task<CoordinatorOutcome> RunAsync(WebApplication app, Action<int>? listening, CancellationToken cancel)
+    {
+        ArgumentNullException.ThrowIfNull(app);
+        CoordinatorEngine engine = app.Services.GetRequiredService<CoordinatorEngine>();
+        await app.StartAsync(cancel);
+        int port = new Uri(app.Urls.First()).Port;
+        listening?.Invoke(port);
+        Task pump = engine.RunAsync(cancel);
+        CoordinatorOutcome outcome;
+        try
+        {
+            outcome = await engine.Completion.WaitAsync(cancel);
+        }
+        catch (OperationCanceledException)
+        {
+            outcome = await engine.Completion;
+        }
+        await pump;
+        // Let the sessions send their last messages, then stop.
+        using var grace = new CancellationTokenSource(TimeSpan.FromSeconds(10));
+        await app.StopAsync(grace.Token);
+        engine.Dispose();
+        return outcome;
+    }
+}

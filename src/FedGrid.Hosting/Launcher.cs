@@ -1,0 +1,208 @@
+using System.Diagnostics;
+using System.Globalization;
+using System.Net;
+using System.Net.Sockets;
+using System.Text.Json;
+
+namespace FedGrid.Hosting;
+
+/// <summary>What <see cref="Launcher"/> measured.</summary>
+/// <param name="Processes">OS processes started (one coordinator and N households).</param>
+/// <param name="Outcome">The coordinator's outcome.</param>
+/// <param name="InProcessModelSha256">Hex SHA-256 of the same run's final model in one process.</param>
+public sealed record LaunchReport(int Processes, CoordinatorOutcome Outcome, string InProcessModelSha256)
+{
+    /// <summary>Whether the multi-process model equals the in-process model bit for bit.</summary>
+    public bool MatchesInProcess => Outcome.Ok && string.Equals(Outcome.ModelSha256, InProcessModelSha256, StringComparison.Ordinal);
+}
+
+/// <summary>
+/// Starts one coordinator process and one process per household (the <c>fedgrid</c> executable itself) on loopback,
+/// waits for the run, reads the coordinator's result file, and stops every child — also when cancelled (Ctrl+C) or when
+/// a child fails. Then runs the same settings in one process for the comparison.
+/// </summary>
+public static class Launcher
+{
+    /// <summary>Runs the launch.</summary>
+    /// <param name="run">The run.</param>
+    /// <param name="self">Command that starts <c>fedgrid</c> (the executable, or <c>dotnet</c> and the dll).</param>
+    /// <param name="progress">Progress lines (children's output included).</param>
+    /// <param name="cancel">Stops everything.</param>
+    /// <returns>The report.</returns>
+    public static async Task<LaunchReport> RunAsync(HostedRunSettings run, IReadOnlyList<string> self, TextWriter progress, CancellationToken cancel)
+    {
+        ArgumentNullException.ThrowIfNull(run);
+        ArgumentNullException.ThrowIfNull(self);
+        ArgumentNullException.ThrowIfNull(progress);
+        var scenario = run.CreateScenario();
+        string folder = Directory.CreateTempSubdirectory("fedgrid-launch-").FullName;
+        string result = Path.Combine(folder, "coordinator.json");
+        int port = FreeLoopbackPort();
+        var children = new List<Process>();
+        try
+        {
+            Process coordinator = Start(self, ["coordinator", .. run.ToArguments(), "--port", port.ToString(CultureInfo.InvariantCulture), "--insecure-loopback", "--result", result],
+                "coordinator", progress);
+            children.Add(coordinator);
+            await WaitListening(port, coordinator, cancel);
+            var address = $"http://127.0.0.1:{port}";
+            foreach (var h in scenario.Households)
+            {
+                children.Add(Start(self, ["household", .. run.ToArguments(), "--id", h.Id, "--coordinator", address, "--insecure-loopback"], h.Id, progress));
+            }
+            progress.WriteLine($"launch: coordinator on {address} and {scenario.Households.Length} household processes");
+            // The run ends when the coordinator exits; a household that fails first ends it too.
+            Task coordinatorExit = coordinator.WaitForExitAsync(cancel);
+            Task firstHouseholdFailure = Task.WhenAll(children.Skip(1).Select(async p =>
+            {
+                await p.WaitForExitAsync(cancel);
+                if (p.ExitCode != 0)
+                {
+                    throw new InvalidOperationException($"household process {p.Id} exited with code {p.ExitCode}");
+                }
+            }));
+            Task first = await Task.WhenAny(coordinatorExit, firstHouseholdFailure);
+            await first; // cancellation or a household failure surfaces here
+            await coordinatorExit;
+            if (coordinator.ExitCode != 0 || !File.Exists(result))
+            {
+                throw new InvalidOperationException($"coordinator exited with code {coordinator.ExitCode}");
+            }
+            using (var grace = CancellationTokenSource.CreateLinkedTokenSource(cancel))
+            {
+                grace.CancelAfter(TimeSpan.FromSeconds(30));
+                await firstHouseholdFailure.WaitAsync(grace.Token);
+            }
+            CoordinatorOutcome outcome = ReadOutcome(result);
+            progress.WriteLine("launch: the same run in one process for comparison");
+            var (sha, _) = run.RunInProcess();
+            return new LaunchReport(children.Count, outcome, Convert.ToHexStringLower(sha));
+        }
+        finally
+        {
+            foreach (Process p in children)
+            {
+                try
+                {
+                    if (!p.HasExited)
+                    {
+                        p.Kill(entireProcessTree: true);
+                    }
+                }
+                catch (InvalidOperationException)
+                {
+                    // already gone
+                }
+                p.Dispose();
+            }
+            try
+            {
+                Directory.Delete(folder, recursive: true);
+            }
+            catch (IOException)
+            {
+                // left for the OS to clean
+            }
+        }
+    }
+
+    /// <summary>A loopback TCP port that was free a moment ago.</summary>
+    /// <returns>The port.</returns>
+    public static int FreeLoopbackPort()
+    {
+        using var l = new TcpListener(IPAddress.Loopback, 0);
+        l.Start();
+        int port = ((IPEndPoint)l.LocalEndpoint).Port;
+        l.Stop();
+        return port;
+    }
+
+    /// <summary>Writes a coordinator outcome as JSON (the coordinator's <c>--result</c> file).</summary>
+    /// <param name="outcome">The outcome.</param>
+    /// <param name="path">File.</param>
+    public static void WriteOutcome(CoordinatorOutcome outcome, string path)
+    {
+        ArgumentNullException.ThrowIfNull(outcome);
+        string tmp = path + ".tmp";
+        using (var stream = File.Create(tmp))
+        using (var w = new Utf8JsonWriter(stream, new JsonWriterOptions { Indented = true }))
+        {
+            w.WriteStartObject();
+            w.WriteBoolean("ok", outcome.Ok);
+            w.WriteString("error", outcome.Error);
+            w.WriteNumber("rounds", outcome.Rounds);
+            w.WriteNumber("aggregatedRounds", outcome.AggregatedRounds);
+            w.WriteNumber("failedRounds", outcome.FailedRounds);
+            w.WriteNumber("steps", outcome.Steps);
+            w.WriteNumber("households", outcome.Households);
+            w.WriteString("modelSha256", outcome.ModelSha256);
+            w.WriteNumber("runSeconds", outcome.RunSeconds);
+            w.WriteNumber("wireBytes", outcome.WireBytes);
+            w.WriteEndObject();
+        }
+        File.Move(tmp, path, overwrite: true);
+    }
+
+    /// <summary>Reads a file of <see cref="WriteOutcome"/>.</summary>
+    /// <param name="path">File.</param>
+    /// <returns>The outcome.</returns>
+    public static CoordinatorOutcome ReadOutcome(string path)
+    {
+        using JsonDocument d = JsonDocument.Parse(File.ReadAllBytes(path));
+        JsonElement r = d.RootElement;
+        return new CoordinatorOutcome(r.GetProperty("ok").GetBoolean(), r.GetProperty("error").GetString(), r.GetProperty("rounds").GetInt32(),
+            r.GetProperty("aggregatedRounds").GetInt32(), r.GetProperty("failedRounds").GetInt32(), r.GetProperty("steps").GetInt64(),
+            r.GetProperty("households").GetInt32(), r.GetProperty("modelSha256").GetString() ?? "", r.GetProperty("runSeconds").GetDouble(),
+            r.GetProperty("wireBytes").GetInt64());
+    }
+
+    private static Process Start(IReadOnlyList<string> self, IEnumerable<string> args, string name, TextWriter progress)
+    {
+        var info = new ProcessStartInfo(self[0]) { RedirectStandardOutput = true, RedirectStandardError = true, UseShellExecute = false };
+        foreach (string a in self.Skip(1).Concat(args))
+        {
+            info.ArgumentList.Add(a);
+        }
+        var p = new Process { StartInfo = info };
+        DataReceivedEventHandler forward = (_, e) =>
+        {
+            if (e.Data is not null)
+            {
+                lock (progress)
+                {
+                    progress.WriteLine($"[{name}] {e.Data}");
+                }
+            }
+        };
+        p.OutputDataReceived += forward;
+        p.ErrorDataReceived += forward;
+        p.Start();
+        p.BeginOutputReadLine();
+        p.BeginErrorReadLine();
+        return p;
+    }
+
+    private static async Task WaitListening(int port, Process coordinator, CancellationToken cancel)
+    {
+        var deadline = Stopwatch.StartNew();
+        while (deadline.Elapsed < TimeSpan.FromSeconds(60))
+        {
+            cancel.ThrowIfCancellationRequested();
+            if (coordinator.HasExited)
+            {
+                throw new InvalidOperationException($"coordinator exited with code {coordinator.ExitCode} before listening");
+            }
+            try
+            {
+                using var c = new TcpClient();
+                await c.ConnectAsync(IPAddress.Loopback, port, cancel);
+                return;
+            }
+            catch (SocketException)
+            {
+                await Task.Delay(100, cancel);
+            }
+        }
+        throw new TimeoutException($"coordinator did not listen on port {port} within 60 s");
+    }
+}

@@ -1,0 +1,126 @@
+using FedGrid.Federation.Wire;
+using Grpc.Core;
+
+namespace FedGrid.Hosting;
+
+/// <summary>
+/// Stateless checks of a household message before it reaches the coordinator's state machine: a body is set, vectors
+/// have the run's lengths, every number is finite and of a sane magnitude. A failed check is an
+/// <see cref="RpcException"/> with <see cref="StatusCode.InvalidArgument"/> and a message naming the field; the state
+/// machine never sees the message, so the coordinator's state is unchanged.
+/// </summary>
+public sealed class MessageChecks
+{
+    /// <summary>Largest household message accepted, bytes (the gRPC receive limit of the coordinator).</summary>
+    public const int MaxMessageBytes = 4 << 20;
+
+    /// <summary>Largest magnitude of a partial sum or parameter: network pre-activations and weights far beyond it mean a broken or hostile sender (common practice for input sanity bounds).</summary>
+    public const float MaxMagnitude = 1e6f;
+
+    /// <summary>Largest magnitude of a power in kW (a home connection is tens of kW; 10 MW is absurd on a feeder lateral; common practice).</summary>
+    public const double MaxKw = 1e4;
+
+    private readonly int _actorSums, _criticSums;
+
+    /// <summary>Checks for a run whose first hidden layers have the given widths.</summary>
+    /// <param name="actorSums">Actor H1 (floats of a partial sum).</param>
+    /// <param name="criticSums">Critic H1.</param>
+    public MessageChecks(int actorSums, int criticSums)
+    {
+        _actorSums = actorSums;
+        _criticSums = criticSums;
+    }
+
+    /// <summary>Throws <see cref="RpcException"/> (INVALID_ARGUMENT) when the message is malformed.</summary>
+    /// <param name="message">The message.</param>
+    public void Check(HouseholdMessage message)
+    {
+        ArgumentNullException.ThrowIfNull(message);
+        switch (message.BodyCase)
+        {
+            case HouseholdMessage.BodyOneofCase.Join:
+                if (string.IsNullOrEmpty(message.Join.HouseholdId) || message.Join.HouseholdId.Length > 64)
+                {
+                    throw Invalid("join.household_id must hold 1 to 64 characters");
+                }
+                if (!double.IsFinite(message.Join.TanPhi) || Math.Abs(message.Join.TanPhi) > 10)
+                {
+                    throw Invalid($"join.tan_phi {message.Join.TanPhi} is not a finite power-factor ratio");
+                }
+                break;
+            case HouseholdMessage.BodyOneofCase.PartialSums:
+                PartialSums s = message.PartialSums;
+                Steps(s.Round, s.Step, "partial_sums");
+                Vector(s.Actor, _actorSums, "partial_sums.actor");
+                Vector(s.Critic, _criticSums, "partial_sums.critic");
+                break;
+            case HouseholdMessage.BodyOneofCase.ProjectionInputs:
+                ProjectionInputs p = message.ProjectionInputs;
+                Steps(p.Round, p.Step, "projection_inputs");
+                Kw(p.ProposalKw, "projection_inputs.proposal_kw");
+                Kw(p.FlexMinKw, "projection_inputs.flex_min_kw");
+                Kw(p.FlexMaxKw, "projection_inputs.flex_max_kw");
+                Kw(p.BaseKw, "projection_inputs.base_kw");
+                if (p.FlexMinKw > p.FlexMaxKw)
+                {
+                    throw Invalid($"projection_inputs: flex_min_kw {p.FlexMinKw} above flex_max_kw {p.FlexMaxKw}");
+                }
+                break;
+            case HouseholdMessage.BodyOneofCase.Upload:
+                ParameterUpload u = message.Upload;
+                Steps(u.Round, 0, "upload");
+                if (u.SampleCount < 0)
+                {
+                    throw Invalid($"upload.sample_count {u.SampleCount} is negative");
+                }
+                Values(u.ActorParameters, "upload.actor_parameters");
+                Values(u.CriticParameters, "upload.critic_parameters");
+                break;
+            default:
+                throw Invalid("household message without a body");
+        }
+    }
+
+    private static void Steps(int round, long step, string what)
+    {
+        if (round < 0 || step < 0)
+        {
+            throw Invalid($"{what}: round {round} step {step} is negative");
+        }
+    }
+
+    private static void Vector(Google.Protobuf.Collections.RepeatedField<float> values, int length, string field)
+    {
+        if (values.Count != length)
+        {
+            throw Invalid($"{field} holds {values.Count} floats; the run's networks need {length}");
+        }
+        Values(values, field);
+    }
+
+    private static void Values(Google.Protobuf.Collections.RepeatedField<float> values, string field)
+    {
+        for (int i = 0; i < values.Count; i++)
+        {
+            float v = values[i];
+            if (!float.IsFinite(v))
+            {
+                throw Invalid($"{field}[{i}] is {v}, not a finite number");
+            }
+            if (Math.Abs(v) > MaxMagnitude)
+            {
+                throw Invalid($"{field}[{i}] = {v} exceeds the magnitude limit {MaxMagnitude}");
+            }
+        }
+    }
+
+    private static void Kw(double v, string field)
+    {
+        if (!double.IsFinite(v) || Math.Abs(v) > MaxKw)
+        {
+            throw Invalid($"{field} = {v} kW is not finite or exceeds {MaxKw} kW");
+        }
+    }
+
+    private static RpcException Invalid(string detail) => new(new Status(StatusCode.InvalidArgument, detail));
+}
