@@ -31,10 +31,6 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
             return;
         }
         HouseholdMessage first = requestStream.Current;
-        if (first.BodyCase != HouseholdMessage.BodyOneofCase.Join)
-        {
-            throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"a session starts with a join request, not {first.BodyCase}")));
-        }
         try
         {
             engine.Checks.Check(first);
@@ -42,6 +38,10 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
         catch (RpcException e)
         {
             throw Log(e);
+        }
+        if (first.BodyCase != HouseholdMessage.BodyOneofCase.Join)
+        {
+            throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"a session starts with a join request, not {first.BodyCase}")));
         }
         HouseholdSession session = engine.Open(first.Join);
         log.LogInformation("household '{Id}' connected as index {Index} from {Peer}", session.Id, session.Index, context.Peer);
@@ -161,13 +161,15 @@ public static class CoordinatorHost
     /// <param name="app">From <see cref="Build"/>.</param>
     /// <param name="listening">Called with the bound port once listening, or null.</param>
     /// <param name="cancel">Stops the run.</param>
+    /// <param name="stopWhenDone">Stop the server when the run is over (false: the caller stops it, e.g. a test that keeps probing a finished coordinator).</param>
     /// <returns>The outcome.</returns>
-    public static async Task<CoordinatorOutcome> RunAsync(WebApplication app, Action<int>? listening, CancellationToken cancel)
+    public static async Task<CoordinatorOutcome> RunAsync(WebApplication app, Action<int>? listening, CancellationToken cancel, bool stopWhenDone = true)
     {
         ArgumentNullException.ThrowIfNull(app);
         CoordinatorEngine engine = app.Services.GetRequiredService<CoordinatorEngine>();
         await app.StartAsync(cancel);
-        int port = new Uri(app.Urls.First()).Port;
+        int port = new Uri(app.Services.GetRequiredService<Microsoft.AspNetCore.Hosting.Server.IServer>()
+            .Features.Get<Microsoft.AspNetCore.Hosting.Server.Features.IServerAddressesFeature>()!.Addresses.First()).Port;
         listening?.Invoke(port);
         Task pump = engine.RunAsync(cancel);
         CoordinatorOutcome outcome;
@@ -180,6 +182,10 @@ public static class CoordinatorHost
             outcome = await engine.Completion;
         }
         await pump;
+        if (!stopWhenDone)
+        {
+            return outcome;
+        }
         // Let the sessions send their last messages, then stop.
         using var grace = new CancellationTokenSource(TimeSpan.FromSeconds(10));
         await app.StopAsync(grace.Token);

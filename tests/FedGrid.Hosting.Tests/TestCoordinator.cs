@@ -1,0 +1,85 @@
+using System.Net;
+using FedGrid.Hosting;
+using Grpc.Net.Client;
+using Microsoft.AspNetCore.Builder;
+using Microsoft.Extensions.Logging;
+
+namespace FedGrid.Hosting.Tests;
+
+/// <summary>A live coordinator host inside the test process, on a free loopback port, with its log lines collected.</summary>
+internal sealed class TestCoordinator : IAsyncDisposable
+{
+    private readonly WebApplication _app;
+    private readonly TaskCompletionSource<int> _port = new(TaskCreationOptions.RunContinuationsAsynchronously);
+    private readonly CancellationTokenSource _cancel = new();
+
+    private TestCoordinator(HostedRunSettings run, TimeSpan roundTimeout)
+    {
+        _app = CoordinatorHost.Build(new CoordinatorHostOptions { Run = run, RoundTimeout = roundTimeout }, IPAddress.Loopback, 0, insecureLoopback: true,
+            logging: b => { b.ClearProviders(); b.AddProvider(new ListLogger(Lines)); });
+        Run = CoordinatorHost.RunAsync(_app, p => _port.TrySetResult(p), _cancel.Token, stopWhenDone: false);
+        _ = Run.ContinueWith(t => _port.TrySetException(t.Exception ?? new Exception("coordinator ended before listening")), TaskContinuationOptions.NotOnRanToCompletion);
+    }
+
+    public List<string> Lines { get; } = [];
+
+    public Task<CoordinatorOutcome> Run { get; }
+
+    public Uri Address { get; private set; } = null!;
+
+    public static async Task<TestCoordinator> StartAsync(HostedRunSettings run, TimeSpan? roundTimeout = null)
+    {
+        var c = new TestCoordinator(run, roundTimeout ?? TimeSpan.FromSeconds(30));
+        int port = await c._port.Task.WaitAsync(TimeSpan.FromSeconds(30));
+        c.Address = new Uri($"http://127.0.0.1:{port}");
+        return c;
+    }
+
+    public GrpcChannel Channel() => GrpcChannel.ForAddress(Address, new GrpcChannelOptions { MaxSendMessageSize = null, MaxReceiveMessageSize = null });
+
+    public bool Logged(string text)
+    {
+        lock (Lines)
+        {
+            return Lines.Any(l => l.Contains(text, StringComparison.Ordinal));
+        }
+    }
+
+    public async ValueTask DisposeAsync()
+    {
+        await _cancel.CancelAsync();
+        try
+        {
+            await Run.WaitAsync(TimeSpan.FromSeconds(30));
+        }
+        catch (Exception)
+        {
+            // a test that failed early
+        }
+        using var grace = new CancellationTokenSource(TimeSpan.FromSeconds(5));
+        await _app.StopAsync(grace.Token);
+        await _app.DisposeAsync();
+        _cancel.Dispose();
+    }
+
+    private sealed class ListLogger(List<string> lines) : ILoggerProvider, ILogger
+    {
+        public ILogger CreateLogger(string categoryName) => this;
+
+        public IDisposable? BeginScope<TState>(TState state) where TState : notnull => null;
+
+        public bool IsEnabled(LogLevel logLevel) => logLevel >= LogLevel.Information;
+
+        public void Log<TState>(LogLevel logLevel, EventId eventId, TState state, Exception? exception, Func<TState, Exception?, string> formatter)
+        {
+            lock (lines)
+            {
+                lines.Add($"{logLevel}: {formatter(state, exception)}");
+            }
+        }
+
+        public void Dispose()
+        {
+        }
+    }
+}
