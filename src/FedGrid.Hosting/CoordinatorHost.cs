@@ -26,9 +26,16 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
         ArgumentNullException.ThrowIfNull(responseStream);
         ArgumentNullException.ThrowIfNull(context);
         CancellationToken cancel = context.CancellationToken;
-        if (!await requestStream.MoveNext(cancel))
+        try
         {
-            return;
+            if (!await requestStream.MoveNext(cancel))
+            {
+                return;
+            }
+        }
+        catch (RpcException e)
+        {
+            throw Log(e); // e.g. RESOURCE_EXHAUSTED: above the size limit
         }
         HouseholdMessage first = requestStream.Current;
         try
@@ -75,7 +82,7 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
 
     private async Task ReadAsync(HouseholdSession session, IAsyncStreamReader<HouseholdMessage> requests, CancellationToken cancel)
     {
-        while (await requests.MoveNext(cancel))
+        while (await MoveNext(requests, cancel))
         {
             HouseholdMessage m = requests.Current;
             try
@@ -96,6 +103,18 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
                 throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"household '{session.Id}' sent a second join request")));
             }
             engine.Post(session, m);
+        }
+    }
+
+    private async Task<bool> MoveNext(IAsyncStreamReader<HouseholdMessage> requests, CancellationToken cancel)
+    {
+        try
+        {
+            return await requests.MoveNext(cancel);
+        }
+        catch (RpcException e) when (e.StatusCode != StatusCode.Cancelled)
+        {
+            throw Log(e);
         }
     }
 
