@@ -16,5 +16,6 @@ internal static class Verbs
         yield return Commands.CoordinatorCommand.Create();
         yield return Commands.HouseholdCommand.Create();
         yield return Commands.LaunchCommand.Create();
+        yield return Commands.CertificatesCommand.Create();
     }
 }

@@ -22,6 +22,9 @@ public sealed record CoordinatorHostOptions
 
     /// <summary>Transcript file to write, or null.</summary>
     public string? TranscriptPath { get; init; }
+
+    /// <summary>Whether sessions come over mutual TLS: the client certificate must name the joining household (set by <see cref="CoordinatorHost.Build"/>).</summary>
+    public bool ClientCertificates { get; init; }
 }
 
 /// <summary>One household's open session.</summary>
@@ -114,6 +117,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         _pending = new HouseholdMessage?[_n];
         _selected = new bool[_n];
     }
+
+    /// <summary>Settings.</summary>
+    public CoordinatorHostOptions Options => _options;
 
     /// <summary>The stateless message checks of this run.</summary>
     public MessageChecks Checks { get; }

@@ -4,7 +4,9 @@ using FedGrid.Hosting.Wire;
 using Grpc.Core;
 using Microsoft.AspNetCore.Builder;
 using Microsoft.AspNetCore.Hosting;
+using System.Security.Cryptography.X509Certificates;
 using Microsoft.AspNetCore.Server.Kestrel.Core;
+using Microsoft.AspNetCore.Server.Kestrel.Https;
 using Microsoft.Extensions.DependencyInjection;
 using Microsoft.Extensions.Hosting;
 using Microsoft.Extensions.Logging;
@@ -49,6 +51,15 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
         if (first.BodyCase != HouseholdMessage.BodyOneofCase.Join)
         {
             throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"a session starts with a join request, not {first.BodyCase}")));
+        }
+        if (engine.Options.ClientCertificates)
+        {
+            string? named = ScenarioCertificates.HouseholdId(context.GetHttpContext().Connection.ClientCertificate);
+            if (!string.Equals(named, first.Join.HouseholdId, StringComparison.Ordinal))
+            {
+                throw Log(new RpcException(new Status(StatusCode.PermissionDenied,
+                    $"the client certificate names household '{named}'; the join request claims '{first.Join.HouseholdId}'")));
+            }
         }
         HouseholdSession session = engine.Open(first.Join);
         log.LogInformation("household '{Id}' connected as index {Index} from {Peer}", session.Id, session.Index, context.Peer);
@@ -140,21 +151,18 @@ public static class CoordinatorHost
     /// <param name="options">Settings.</param>
     /// <param name="address">Address to listen on.</param>
     /// <param name="port">Port.</param>
-    /// <param name="insecureLoopback">Plain-text HTTP/2; only allowed on a loopback address.</param>
+    /// <param name="tlsFolder">Folder of <see cref="ScenarioCertificates"/> for mutual TLS, or null for plain-text HTTP/2 (allowed on a loopback address only).</param>
     /// <param name="logging">Extra logging set-up, or null.</param>
     /// <returns>The application (not started).</returns>
-    public static WebApplication Build(CoordinatorHostOptions options, IPAddress address, int port, bool insecureLoopback, Action<ILoggingBuilder>? logging = null)
+    public static WebApplication Build(CoordinatorHostOptions options, IPAddress address, int port, string? tlsFolder, Action<ILoggingBuilder>? logging = null)
     {
         ArgumentNullException.ThrowIfNull(options);
         ArgumentNullException.ThrowIfNull(address);
-        if (!insecureLoopback)
-        {
-            throw new ArgumentException("mutual TLS is not available yet: run on loopback with the insecure-loopback option");
-        }
-        if (!IPAddress.IsLoopback(address))
+        if (tlsFolder is null && !IPAddress.IsLoopback(address))
         {
             throw new ArgumentException($"plain-text transport is allowed on loopback only, not on {address}");
         }
+        options = options with { ClientCertificates = tlsFolder is not null };
         WebApplicationBuilder builder = WebApplication.CreateSlimBuilder();
         builder.Logging.ClearProviders();
         builder.Logging.AddSimpleConsole(o => { o.SingleLine = true; o.TimestampFormat = "HH:mm:ss.fff "; });
@@ -162,7 +170,27 @@ public static class CoordinatorHost
         builder.Logging.AddFilter("Microsoft", LogLevel.Warning);
         builder.Logging.AddFilter("Grpc", LogLevel.Warning);
         logging?.Invoke(builder.Logging);
-        builder.WebHost.ConfigureKestrel(k => k.Listen(address, port, l => l.Protocols = HttpProtocols.Http2));
+        X509Certificate2? ca = null, server = null;
+        if (tlsFolder is not null)
+        {
+            ca = ScenarioCertificates.LoadCa(tlsFolder);
+            server = ScenarioCertificates.Load(Path.Combine(tlsFolder, ScenarioCertificates.CoordinatorFile));
+        }
+        builder.WebHost.ConfigureKestrel(k => k.Listen(address, port, l =>
+        {
+            l.Protocols = HttpProtocols.Http2;
+            if (server is not null)
+            {
+                l.UseHttps(https =>
+                {
+                    https.ServerCertificate = server;
+                    https.ClientCertificateMode = ClientCertificateMode.RequireCertificate;
+                    https.CheckCertificateRevocation = false;
+                    // Only certificates issued by the scenario CA for client authentication.
+                    https.ClientCertificateValidation = (cert, _, _) => ScenarioCertificates.ChainsTo(cert, ca!, ScenarioCertificates.ClientAuth);
+                });
+            }
+        }));
         builder.Services.AddGrpc(g =>
         {
             g.MaxReceiveMessageSize = MessageChecks.MaxMessageBytes;

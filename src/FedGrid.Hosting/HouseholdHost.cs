@@ -5,6 +5,8 @@ using FedGrid.Federation.Training;
 using FedGrid.Federation.Wire;
 using FedGrid.Hosting.Wire;
 using FedGrid.Households.Scenarios;
+using System.Net.Security;
+using System.Security.Cryptography.X509Certificates;
 using Grpc.Core;
 using Grpc.Net.Client;
 using Microsoft.Extensions.Logging;
@@ -60,11 +62,24 @@ public sealed class HouseholdHost
     /// <summary>Joins the coordinator at <paramref name="address"/> and runs every step of the scenario.</summary>
     /// <param name="address">The coordinator, e.g. http://127.0.0.1:5000.</param>
     /// <param name="cancel">Stops the run.</param>
-    public async Task RunAsync(Uri address, CancellationToken cancel)
+    /// <param name="tlsFolder">Folder holding <c>ca.crt</c> and this household's <c>&lt;id&gt;.pfx</c> for mutual TLS (an https address), or null for plain text.</param>
+    public async Task RunAsync(Uri address, CancellationToken cancel, string? tlsFolder = null)
     {
         ArgumentNullException.ThrowIfNull(address);
+        using var handler = new SocketsHttpHandler { EnableMultipleHttp2Connections = false };
+        if (tlsFolder is not null)
+        {
+            X509Certificate2 ca = ScenarioCertificates.LoadCa(tlsFolder);
+            handler.SslOptions = new SslClientAuthenticationOptions
+            {
+                ClientCertificates = new X509CertificateCollection { ScenarioCertificates.Load(ScenarioCertificates.HouseholdFile(tlsFolder, _id)) },
+                RemoteCertificateValidationCallback = ScenarioCertificates.ServerValidator(ca),
+            };
+        }
         using GrpcChannel channel = GrpcChannel.ForAddress(address, new GrpcChannelOptions
         {
+            HttpHandler = handler,
+            DisposeHttpClient = false,
             MaxReceiveMessageSize = 64 << 20,
             MaxSendMessageSize = MessageChecks.MaxMessageBytes,
         });

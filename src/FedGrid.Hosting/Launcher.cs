@@ -28,8 +28,9 @@ public static class Launcher
     /// <param name="self">Command that starts <c>fedgrid</c> (the executable, or <c>dotnet</c> and the dll).</param>
     /// <param name="progress">Progress lines (children's output included).</param>
     /// <param name="cancel">Stops everything.</param>
+    /// <param name="insecureLoopback">Plain text on loopback instead of mutual TLS with a fresh scenario CA.</param>
     /// <returns>The report.</returns>
-    public static async Task<LaunchReport> RunAsync(HostedRunSettings run, IReadOnlyList<string> self, TextWriter progress, CancellationToken cancel)
+    public static async Task<LaunchReport> RunAsync(HostedRunSettings run, IReadOnlyList<string> self, TextWriter progress, CancellationToken cancel, bool insecureLoopback = false)
     {
         ArgumentNullException.ThrowIfNull(run);
         ArgumentNullException.ThrowIfNull(self);
@@ -38,19 +39,25 @@ public static class Launcher
         string folder = Directory.CreateTempSubdirectory("fedgrid-launch-").FullName;
         string result = Path.Combine(folder, "coordinator.json");
         int port = FreeLoopbackPort();
+        string tls = Path.Combine(folder, "tls");
+        string[] transport = insecureLoopback ? ["--insecure-loopback"] : ["--tls", tls];
+        if (!insecureLoopback)
+        {
+            ScenarioCertificates.Create(tls, scenario.Households.Select(h => h.Id));
+        }
         var children = new List<Process>();
         try
         {
-            Process coordinator = Start(self, ["coordinator", .. run.ToArguments(), "--port", port.ToString(CultureInfo.InvariantCulture), "--insecure-loopback", "--result", result],
+            Process coordinator = Start(self, ["coordinator", .. run.ToArguments(), "--port", port.ToString(CultureInfo.InvariantCulture), .. transport, "--result", result],
                 "coordinator", progress);
             children.Add(coordinator);
             await WaitListening(port, coordinator, cancel);
-            var address = $"http://127.0.0.1:{port}";
+            var address = $"{(insecureLoopback ? "http" : "https")}://127.0.0.1:{port}";
             foreach (var h in scenario.Households)
             {
-                children.Add(Start(self, ["household", .. run.ToArguments(), "--id", h.Id, "--coordinator", address, "--insecure-loopback"], h.Id, progress));
+                children.Add(Start(self, ["household", .. run.ToArguments(), "--id", h.Id, "--coordinator", address, .. transport], h.Id, progress));
             }
-            progress.WriteLine($"launch: coordinator on {address} and {scenario.Households.Length} household processes");
+            progress.WriteLine($"launch: coordinator on {address} and {scenario.Households.Length} household processes ({(insecureLoopback ? "plain text on loopback" : "mutual TLS, scenario CA in " + tls)})");
             // The run ends when the coordinator exits; a household that fails first ends it too.
             Task coordinatorExit = coordinator.WaitForExitAsync(cancel);
             Task firstHouseholdFailure = Task.WhenAll(children.Skip(1).Select(async p =>

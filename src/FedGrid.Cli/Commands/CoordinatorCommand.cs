@@ -17,6 +17,7 @@ internal static class CoordinatorCommand
         var timeout = new Option<double>("--round-timeout") { Description = "seconds a round waits for its uploads (default 60)", DefaultValueFactory = _ => 60 };
         var json = new Option<bool>("--json") { Description = "print the outcome as JSON" };
         var insecure = HostOptions.InsecureLoopback();
+        var tls = HostOptions.Tls();
         var cmd = new Command("coordinator", "Run the coordinator host of a multi-process federated run (gRPC).");
         foreach (Option o in runOptions)
             cmd.Options.Add(o);
@@ -27,18 +28,19 @@ internal static class CoordinatorCommand
         cmd.Options.Add(timeout);
         cmd.Options.Add(json);
         cmd.Options.Add(insecure);
+        cmd.Options.Add(tls);
         cmd.SetAction(async (parse, cancel) =>
         {
-            HostOptions.RequireInsecureLoopback(parse.GetValue(insecure));
+            string? folder = HostOptions.Transport(parse.GetValue(tls), parse.GetValue(insecure));
             if (!IPAddress.TryParse(parse.GetValue(address), out IPAddress? ip))
                 throw new UserInputException($"--address: '{parse.GetValue(address)}' is not an IP address");
-            if (!IPAddress.IsLoopback(ip))
+            if (folder is null && !IPAddress.IsLoopback(ip))
                 throw new UserInputException($"--address {ip}: plain text is allowed on loopback only");
             double seconds = parse.GetValue(timeout);
             if (!(seconds > 0))
                 throw new UserInputException($"--round-timeout must be positive, got {seconds}");
             var options = new CoordinatorHostOptions { Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript) };
-            var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), insecureLoopback: true);
+            var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), tlsFolder: folder);
             CoordinatorOutcome outcome = await CoordinatorHost.RunAsync(app, p => Console.Out.WriteLine($"coordinator: listening on {ip}:{p}"), cancel);
             if (parse.GetValue(result) is { } path)
                 Launcher.WriteOutcome(outcome, path);

@@ -33,13 +33,22 @@ internal static class HostOptions
 
     public static Option<bool> InsecureLoopback() => new("--insecure-loopback")
     {
-        Description = "plain-text HTTP/2 on a loopback address (mutual TLS is not available yet, so this is required)",
+        Description = "plain-text HTTP/2, allowed on a loopback address only (instead of --tls)",
     };
 
-    public static void RequireInsecureLoopback(bool given)
+    public static Option<string?> Tls() => new("--tls")
     {
-        if (!given)
-            throw new UserInputException("mutual TLS is not available yet: pass --insecure-loopback to run plain text on loopback");
+        Description = "folder of the run's certificates (fedgrid certificates): ca.crt and coordinator.pfx or <id>.pfx; mutual TLS",
+    };
+
+    /// <summary>The certificate folder, or null for plain text; exactly one of --tls and --insecure-loopback.</summary>
+    public static string? Transport(string? tls, bool insecure)
+    {
+        if ((tls is null) == !insecure)
+            throw new UserInputException("give exactly one of --tls DIR (mutual TLS) and --insecure-loopback (plain text on loopback)");
+        if (tls is not null && !File.Exists(Path.Combine(tls, ScenarioCertificates.CaFile)))
+            throw new UserInputException($"--tls {tls}: no {ScenarioCertificates.CaFile} there (make the folder with fedgrid certificates)");
+        return tls;
     }
 
     /// <summary>The command that starts this very executable (the apphost, or dotnet and the dll).</summary>

@@ -13,18 +13,21 @@ internal static class HouseholdCommand
         var id = new Option<string>("--id") { Description = "the household's id (e.g. H01)", Required = true };
         var coordinator = new Option<string>("--coordinator") { Description = "the coordinator's address, e.g. http://127.0.0.1:5151", Required = true };
         var insecure = HostOptions.InsecureLoopback();
+        var tls = HostOptions.Tls();
         var cmd = new Command("household", "Run one household host of a multi-process federated run (gRPC client).");
         foreach (Option o in runOptions)
             cmd.Options.Add(o);
         cmd.Options.Add(id);
         cmd.Options.Add(coordinator);
         cmd.Options.Add(insecure);
+        cmd.Options.Add(tls);
         cmd.SetAction(async (parse, cancel) =>
         {
-            HostOptions.RequireInsecureLoopback(parse.GetValue(insecure));
-            if (!Uri.TryCreate(parse.GetValue(coordinator), UriKind.Absolute, out Uri? address) || address.Scheme != "http")
-                throw new UserInputException($"--coordinator: '{parse.GetValue(coordinator)}' is not an http:// address");
-            if (!address.IsLoopback)
+            string? folder = HostOptions.Transport(parse.GetValue(tls), parse.GetValue(insecure));
+            string scheme = folder is null ? "http" : "https";
+            if (!Uri.TryCreate(parse.GetValue(coordinator), UriKind.Absolute, out Uri? address) || address.Scheme != scheme)
+                throw new UserInputException($"--coordinator: '{parse.GetValue(coordinator)}' is not an {scheme}:// address");
+            if (folder is null && !address.IsLoopback)
                 throw new UserInputException($"--coordinator {address}: plain text is allowed on loopback only");
             using ILoggerFactory logs = LoggerFactory.Create(b => b.AddSimpleConsole(o => { o.SingleLine = true; o.TimestampFormat = "HH:mm:ss.fff "; }).SetMinimumLevel(LogLevel.Information));
             HouseholdHost host;
@@ -36,7 +39,7 @@ internal static class HouseholdCommand
             {
                 throw new UserInputException($"--id: {e.Message}");
             }
-            await host.RunAsync(address, cancel);
+            await host.RunAsync(address, cancel, folder);
             return CliRunner.ExitOk;
         });
         return cmd;

@@ -5,8 +5,9 @@ using FedGrid.Hosting;
 namespace FedGrid.Cli.Commands;
 
 /// <summary>
-/// <c>fedgrid launch</c>: one coordinator and N household processes on loopback (plain text: the launcher's own
-/// loopback run), the result compared with the same run in one process. Exit code 0 when the models match.
+/// <c>fedgrid launch</c>: one coordinator and N household processes on loopback over mutual TLS with a fresh scenario
+/// CA (plain text with --insecure-loopback), the result compared with the same run in one process. Exit code 0 when
+/// the models match.
 /// </summary>
 internal static class LaunchCommand
 {
@@ -14,14 +15,16 @@ internal static class LaunchCommand
     {
         var (runOptions, read) = HostOptions.Create(householdsRequired: true);
         var json = new Option<bool>("--json") { Description = "print one JSON object instead of a summary" };
+        var insecure = HostOptions.InsecureLoopback();
         var cmd = new Command("launch", "Start a coordinator and N household processes on loopback, run, compare with the in-process run, shut everything down.");
         foreach (Option o in runOptions)
             cmd.Options.Add(o);
         cmd.Options.Add(json);
+        cmd.Options.Add(insecure);
         cmd.SetAction(async (parse, cancel) =>
         {
             HostedRunSettings run = read(parse);
-            LaunchReport r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel);
+            LaunchReport r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel, parse.GetValue(insecure));
             Console.Out.Write(parse.GetValue(json) ? ToJson(r) : ToSummary(r));
             return r.MatchesInProcess ? CliRunner.ExitOk : CliRunner.ExitFailure;
         });
