@@ -10,8 +10,12 @@ namespace FedGrid.Hosting;
 /// <param name="Processes">OS processes started (one coordinator and N households).</param>
 /// <param name="Outcome">The coordinator's outcome.</param>
 /// <param name="InProcessModelSha256">Hex SHA-256 of the same run's final model in one process.</param>
-public sealed record LaunchReport(int Processes, CoordinatorOutcome Outcome, string InProcessModelSha256)
+/// <param name="InProcessStepsPerSecond">Decision steps per second of that in-process run (its whole wall time).</param>
+public sealed record LaunchReport(int Processes, CoordinatorOutcome Outcome, string InProcessModelSha256, double InProcessStepsPerSecond)
 {
+    /// <summary>Multi-process steps per second over in-process steps per second.</summary>
+    public double RatioToInProcess => InProcessStepsPerSecond > 0 ? Outcome.StepsPerSecond / InProcessStepsPerSecond : 0;
+
     /// <summary>Whether the multi-process model equals the in-process model bit for bit.</summary>
     public bool MatchesInProcess => Outcome.Ok && string.Equals(Outcome.ModelSha256, InProcessModelSha256, StringComparison.Ordinal);
 }
@@ -82,8 +86,8 @@ public static class Launcher
             }
             CoordinatorOutcome outcome = ReadOutcome(result);
             progress.WriteLine("launch: the same run in one process for comparison");
-            var (sha, _) = run.RunInProcess();
-            return new LaunchReport(children.Count, outcome, Convert.ToHexStringLower(sha));
+            var (sha, inProcess) = run.RunInProcess();
+            return new LaunchReport(children.Count, outcome, Convert.ToHexStringLower(sha), inProcess.Run.DecisionSteps / inProcess.Run.Elapsed.TotalSeconds);
         }
         finally
         {

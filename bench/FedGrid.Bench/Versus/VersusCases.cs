@@ -7,5 +7,6 @@ internal static class VersusCases
     {
         foreach (IVersusCase c in PowerFlowVersusCase.All()) yield return c;
         foreach (IVersusCase c in ProjectionVersusCase.All()) yield return c;
+        yield return new HostingVersusCase();
     }
 }

@@ -46,6 +46,8 @@ internal static class LaunchCommand
             w.WriteBoolean("matchesInProcess", r.MatchesInProcess);
             w.WriteNumber("stepsPerSecond", Math.Round(r.Outcome.StepsPerSecond, 2));
             w.WriteNumber("bytesPerHouseholdPerStep", Math.Round(r.Outcome.BytesPerHouseholdPerStep, 1));
+            w.WriteNumber("inProcessStepsPerSecond", Math.Round(r.InProcessStepsPerSecond, 2));
+            w.WriteNumber("ratioToInProcess", Math.Round(r.RatioToInProcess, 4));
             w.WriteEndObject();
         }
         return System.Text.Encoding.UTF8.GetString(ms.ToArray()) + Environment.NewLine;
