@@ -1,7 +1,8 @@
 # The coordinator host (one per feeder). Build the shared image first (deploy/Dockerfile, tag fedgrid), then
 #   docker build -f deploy/coordinator.Dockerfile -t fedgrid-coordinator deploy
-# and run it on the host's network (plain text is refused off loopback until mutual TLS lands):
-#   docker run --rm --network host fedgrid-coordinator --households 32 --days 1 --seed 1 --port 5151 --insecure-loopback
+# make the run's certificates (fedgrid certificates --out certs --households 32 --server-name HOST) and run
+#   docker run --rm -p 5151:5151 -v $PWD/certs:/certs:ro fedgrid-coordinator \
+#       --households 32 --days 7 --address 0.0.0.0 --port 5151 --tls /certs
 FROM fedgrid
 EXPOSE 5151
 ENTRYPOINT ["/app/fedgrid", "coordinator"]
