@@ -126,10 +126,13 @@ public sealed class BusAggregateProjectionTests
     public void With_one_household_per_bus_it_equals_the_per_household_projection()
     {
         var (sc, step, tan, fixedLoads) = Overload();
-        // Every household on a bus of its own: the first 32 load buses of the feeder that are not the substation's.
+        // Every household on a bus of its own: as many households as the feeder has buses besides the substation's, doubled
+        // in load so that the feeder still overloads.
         string slack = sc.Feeder.Substation.SlackBus;
-        string[] buses = sc.Feeder.Buses.Select(b => b.Id).Where(id => id != slack).Take(sc.Households.Length).ToArray();
-        Assert.Equal(sc.Households.Length, buses.Length);
+        string[] buses = sc.Feeder.Buses.Select(b => b.Id).Where(id => id != slack).ToArray();
+        int n = buses.Length;
+        step = new Step(step.ProposalKw[..n].Select(x => 2 * x).ToArray(), step.MinKw[..n], step.MaxKw[..n].Select(x => 2 * x).ToArray(), step.BaseKw[..n].Select(x => 2 * x).ToArray());
+        tan = tan[..n];
         Outcome bus = Exchange(new BusAggregateProjectionInputs(), sc.Feeder, buses, tan, fixedLoads, step);
         Outcome household = Exchange(new HouseholdProjectionInputs(), sc.Feeder, buses, tan, fixedLoads, step);
         Assert.Equal(household.Result.Status, bus.Result.Status);
