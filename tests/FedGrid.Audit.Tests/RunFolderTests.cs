@@ -12,7 +12,8 @@ namespace FedGrid.Audit.Tests;
 /// <summary>End to end: a real federated run's transcript, read back and attacked.</summary>
 public sealed class RunFolderTests
 {
-    internal static string Train(string scheme, int days, int stepsPerRound = 96, LocalOptimiser optimiser = LocalOptimiser.Adam, double? learningRate = null)
+    internal static string Train(string scheme, int days, int stepsPerRound = 96, LocalOptimiser optimiser = LocalOptimiser.Adam, double? learningRate = null,
+        IProjectionInputsForm? projectionForm = null)
     {
         string dir = Directory.CreateTempSubdirectory($"fedgrid-audit-{scheme}-").FullName;
         Scenario scenario = DefaultScenario.Create(DefaultScenario.DefaultSeed, days);
@@ -24,7 +25,7 @@ public sealed class RunFolderTests
         };
         var run = new InProcessFederation(scenario, new FederatedRunOptions
         {
-            Scheme = ClearScheme.FromName(scheme), Federation = fed,
+            Scheme = ClearScheme.FromName(scheme), Federation = fed, ProjectionForm = projectionForm,
             TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         });
         run.Run();
@@ -129,5 +130,36 @@ public sealed class RunFolderTests
         File.WriteAllLines(Path.Combine(torn, GroundTruthWriter.FileName), lines);
         var e = Assert.Throws<RunFolderException>(() => RunFolderReader.Load(torn));
         Assert.Contains(GroundTruthWriter.FileName + ":" + (header + 1), e.Message);
+    }
+
+    [Fact]
+    public void Bus_aggregate_transcript_yields_bus_totals_only()
+    {
+        string dir = Train(ClearScheme.PrivateColumnsName, 1, projectionForm: new BusAggregateProjectionInputs());
+        AuditRun run = RunFolderReader.Load(dir);
+        Assert.Equal(BusAggregateProjectionInputs.FormName, run.Context.ProjectionInputs);
+        Assert.All(run.View.Households, h => Assert.Empty(h.ReportedKw));
+        Assert.All(run.View.Households, h => Assert.Null(h.SetpointKw));
+        // The summed shares are the bus totals of the simulation record.
+        int T = run.View.SlotCount;
+        double[] totals = run.View.BusTotalsKw[Quantity.BaseLoad];
+        for (int b = 0; b < run.View.BusIds.Count; b++)
+            for (int t = 0; t < T; t += 7)
+            {
+                double truth = Enumerable.Range(0, run.View.Households.Count).Where(m => run.View.Households[m].Bus == b)
+                    .Sum(m => run.Truth!.Kw(Quantity.BaseLoad, m)[t]);
+                Assert.Equal(truth, totals[b * T + t], 1e-6); // fixed-point resolution 2^-24 kW per share
+            }
+        AttackResults results = Auditor.Attack(run.View);
+        ScoreCard card = Scorer.Score(run.View, results, run.Truth!);
+        // A household alone on its bus is handed over; households that share a bus are not.
+        var perHousehold = card.Households.Where(h => h.Channel == Channel.ProjectionInputs && h.Attack == ProjectionInputAttack.BusShareName && h.Quantity == Quantity.BaseLoad).ToList();
+        foreach (var h in perHousehold)
+        {
+            int bus = run.View.Households.Single(x => x.Id == h.HouseholdId).Bus;
+            int count = run.View.Households.Count(x => x.Bus == bus);
+            if (count == 1) Assert.True(h.Attacked.RelativeRmse < 1e-6, $"{h.HouseholdId} alone on its bus: {h.Attacked.RelativeRmse}");
+            else Assert.True(h.Attacked.RelativeRmse > 1e-3, $"{h.HouseholdId} shares its bus with {count - 1}: {h.Attacked.RelativeRmse}");
+        }
     }
 }

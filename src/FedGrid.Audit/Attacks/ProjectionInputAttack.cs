@@ -2,8 +2,8 @@ namespace FedGrid.Audit.Attacks;
 
 /// <summary>
 /// Projection inputs. In the per-household form the coordinator is handed base load and flexible bounds outright;
-/// in the bus-aggregate form it learns bus totals and splits them among the bus's households in proportion to
-/// their prior means (equal shares without priors).
+/// in the bus-aggregate form it learns bus totals and infers each household's share as the Gaussian posterior mean
+/// given the total and the public priors (the joint attack then fuses it with the other channels).
 /// </summary>
 public static class ProjectionInputAttack
 {
@@ -33,25 +33,36 @@ public static class ProjectionInputAttack
                 reconstructions.Add(new Reconstruction(Channel.ProjectionInputs, ReportedName, q, m, est, var));
             }
         }
+        // Bus-aggregate form: the coordinator knows Σ_{k on bus} x_k(t). Under independent Gaussian priors x_k ~ N(μ_k, σ_k²)
+        // the posterior of one household's share given the bus total is Gaussian with mean μ_m + σ_m²/Σσ_k² · (total − Σμ_k)
+        // and variance σ_m² (1 − σ_m²/Σσ_k²); with one household on the bus the total is its value.
+        int M = view.Households.Count;
         foreach (var (q, totals) in view.BusTotalsKw)
-            for (int m = 0; m < view.Households.Count; m++)
+        {
+            var means = new double[M][];
+            var stds = new double[M];
+            for (int k = 0; k < M; k++) { means[k] = AttackPrior.Mean(view, options, k, q); stds[k] = AttackPrior.Std(view, options, k, q); }
+            for (int m = 0; m < M; m++)
             {
                 int bus = view.Households[m].Bus;
                 (double[] est, double[] var) = AttackPrior.Fallback(view, options, m, q);
-                double sp = AttackPrior.Std(view, options, m, q);
-                double[] mine = AttackPrior.Mean(view, options, m, q);
-                int count = view.Households.Count(x => x.Bus == bus);
+                double sumVar = 0;
+                for (int k = 0; k < M; k++)
+                    if (view.Households[k].Bus == bus) sumVar += stds[k] * stds[k];
+                double gain = stds[m] * stds[m] / sumVar;
+                double posterior = Math.Max(AttackPrior.TinyVariance, stds[m] * stds[m] * (1 - gain));
                 for (int t = 0; t < T; t++)
                 {
                     double total = totals[bus * T + t];
                     if (!double.IsFinite(total)) continue;
-                    double sum = 0;
-                    for (int k = 0; k < view.Households.Count; k++)
-                        if (view.Households[k].Bus == bus) sum += Math.Max(0, AttackPrior.Mean(view, options, k, q)[t]);
-                    est[t] = sum > 0 ? total * Math.Max(0, mine[t]) / sum : total / count;
-                    var[t] = count == 1 ? AttackPrior.TinyVariance : sp * sp * (count - 1) / count;
+                    double sumMean = 0;
+                    for (int k = 0; k < M; k++)
+                        if (view.Households[k].Bus == bus) sumMean += means[k][t];
+                    est[t] = means[m][t] + gain * (total - sumMean);
+                    var[t] = posterior;
                 }
                 reconstructions.Add(new Reconstruction(Channel.ProjectionInputs, BusShareName, q, m, est, var));
             }
+        }
     }
 }

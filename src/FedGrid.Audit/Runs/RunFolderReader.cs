@@ -1,5 +1,6 @@
 using System.Globalization;
 using FedGrid.Audit.Scoring;
+using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Training;
 using FedGrid.Federation.Transcripts;
@@ -130,8 +131,23 @@ public static class RunFolderReader
                 }
             }
         }
+        var busTotals = new Dictionary<Quantity, double[]>();
+        if (data.BusTotals.Count > 0)
+        {
+            // Share layout of BusAggregateProjectionInputs: proposal, flexible minimum, desired, base kW, base kvar.
+            foreach (var (q, index) in new[] { (Quantity.BaseLoad, 3), (Quantity.FlexMinimum, 1), (Quantity.FlexDesired, 2) })
+            {
+                var series = new double[busIds.Count * T];
+                Array.Fill(series, double.NaN);
+                for (int b = 0; b < busIds.Count; b++)
+                    if (data.BusTotals.TryGetValue(busIds[b], out double[][]? totals))
+                        Array.Copy(totals[index], 0, series, b * T, T);
+                busTotals[q] = series;
+            }
+        }
         var view = new AttackerView
         {
+            BusTotalsKw = busTotals,
             SlotCount = T, FirstLayerSize = data.H, Features = inputFeatures, PublicFeatureValues = pub, BusIds = busIds, Households = households,
             BusMeterKw = busMeter, SubstationMeterKw = substationMeter ? substation : null,
             OccupancyThresholdKw = reference.Thresholds, PriorHomeProbability = reference.HomeProbability,
@@ -153,7 +169,9 @@ public static class RunFolderReader
         public string[] Ids = [], Buses = [];
         public float[][] Sums = [];
         public double[]?[] ReportedBase = [], ReportedMin = [], ReportedMax = [];
-        public double[][] Setpoints = [];
+        public double[]?[] Setpoints = [];
+        // Bus-aggregate form: bus totals by quantity, keyed by bus id (one value per step; NaN where the bus's shares were incomplete).
+        public Dictionary<string, double[][]> BusTotals = new(StringComparer.Ordinal);
         public List<RoundObservation>[] Rounds = [];
         public string? Note;
     }
@@ -192,6 +210,10 @@ public static class RunFolderReader
             var roundBias = new Dictionary<int, (double[] A, double[] C)>();
             var uploads = new Dictionary<(int M, int R), (FirstLayerUpdate[] U, int Samples)>();
             long maxStep = -1;
+            // Bus-aggregate shares: per bus, per step, the running sum mod 2^64 and the number of shares in it.
+            var busMembers = new Dictionary<string, int>(StringComparer.Ordinal);
+            var busBits = new Dictionary<string, int>(StringComparer.Ordinal);
+            var busSums = new Dictionary<string, List<(ulong[] Sum, int Count)>>(StringComparer.Ordinal);
             foreach (TranscriptRecord r in reader.Records())
             {
                 switch (r.Kind())
@@ -248,6 +270,25 @@ public static class RunFolderReader
                         Put(maxKw[m], pi.Step, pi.FlexMaxKw);
                         break;
                     }
+                    case RecordKind.BusPeers:
+                    {
+                        BusPeers bp = r.Sent.BusPeers;
+                        busMembers[bp.BusId] = bp.Members.Count;
+                        busBits[bp.BusId] = bp.FractionalBits;
+                        break;
+                    }
+                    case RecordKind.BusShares:
+                    {
+                        int m = r.Received.HouseholdIndex;
+                        BusShares bs = r.Received.BusShares;
+                        if (m < 0 || m >= M || d.Buses[m] is not { } bus || bs.Masked.Count != BusAggregateProjectionInputs.ValuesPerShare || bs.Step < 0) break;
+                        if (!busSums.TryGetValue(bus, out var list)) busSums[bus] = list = [];
+                        while (list.Count <= bs.Step) list.Add((new ulong[BusAggregateProjectionInputs.ValuesPerShare], 0));
+                        var (sum, count) = list[(int)bs.Step];
+                        for (int i = 0; i < sum.Length; i++) sum[i] = unchecked(sum[i] + bs.Masked[i]);
+                        list[(int)bs.Step] = (sum, count + 1);
+                        break;
+                    }
                     case RecordKind.Setpoint:
                     {
                         int m = r.Sent.HouseholdIndex;
@@ -297,7 +338,7 @@ public static class RunFolderReader
                 d.ReportedBase[m] = baseKw[m].Count > 0 ? Pad(baseKw[m], T) : null;
                 d.ReportedMin[m] = minKw[m].Count > 0 ? Pad(minKw[m], T) : null;
                 d.ReportedMax[m] = maxKw[m].Count > 0 ? Pad(maxKw[m], T) : null;
-                d.Setpoints[m] = Pad(setKw[m], T);
+                d.Setpoints[m] = setKw[m].Count > 0 ? Pad(setKw[m], T) : null;
                 d.Rounds[m] = [];
                 for (int r = 0; r < rounds; r++)
                 {
@@ -312,6 +353,20 @@ public static class RunFolderReader
                         TrainingStartSlot = u.U is null ? -1 : Math.Max(0, r * d.StepsPerRound + Math.Min(d.StepsPerRound, T - r * d.StepsPerRound) - 1 - u.Samples),
                     });
                 }
+            }
+            // The bus totals the coordinator learns: the sum of a bus's masked shares, where every member's share arrived.
+            foreach (var (bus, list) in busSums)
+            {
+                if (!busMembers.TryGetValue(bus, out int members) || !busBits.TryGetValue(bus, out int bits)) continue;
+                double scale = Math.ScaleB(1.0, -bits);
+                var totals = new double[BusAggregateProjectionInputs.ValuesPerShare][];
+                for (int i = 0; i < totals.Length; i++) { totals[i] = new double[T]; Array.Fill(totals[i], double.NaN); }
+                for (int t = 0; t < Math.Min(T, list.Count); t++)
+                {
+                    if (list[t].Count != members) continue;
+                    for (int i = 0; i < totals.Length; i++) totals[i][t] = unchecked((long)list[t].Sum[i]) * scale;
+                }
+                d.BusTotals[bus] = totals;
             }
             return d;
         }

@@ -14,7 +14,9 @@ namespace FedGrid.Cli.Commands;
 /// <param name="Participation">Fraction of households called to train per round, or null for 1.</param>
 /// <param name="MinQuorum">Fewest uploads per aggregated round, or null for 1.</param>
 /// <param name="StepsPerRound">Decision steps per round, or null for one day (96).</param>
-internal sealed record FederatedTrainOptions(string? Scheme = null, double? Participation = null, int? MinQuorum = null, int? StepsPerRound = null);
+/// <param name="ProjectionInputs">Projection-input form ("household" or "bus-aggregate"), or null for household.</param>
+internal sealed record FederatedTrainOptions(string? Scheme = null, double? Participation = null, int? MinQuorum = null, int? StepsPerRound = null,
+    string? ProjectionInputs = null);
 
 /// <summary>
 /// The federated mode of <c>fedgrid train</c>: the protocol of <see cref="InProcessFederation"/> in one process, with the
@@ -31,8 +33,12 @@ internal static class TrainFederated
         var participation = new Option<double?>("--participation") { Description = "federated mode: fraction of households called to train each round, in (0, 1] (default 1)" };
         var quorum = new Option<int?>("--min-quorum") { Description = "federated mode: fewest uploads with which a round is aggregated (default 1)" };
         var round = new Option<int?>("--steps-per-round") { Description = $"federated mode: decision steps per round (default {SlotCalendar.SlotsPerDay}, one day)" };
-        return ([scheme, participation, quorum, round],
-            p => new FederatedTrainOptions(p.GetValue(scheme), p.GetValue(participation), p.GetValue(quorum), p.GetValue(round)));
+        var inputs = new Option<string?>("--projection-inputs")
+        {
+            Description = $"federated mode: how the projection's inputs reach the coordinator: {HouseholdProjectionInputs.FormName} (default; each household's own values) or {BusAggregateProjectionInputs.FormName} (masked shares; the coordinator learns bus totals only)",
+        };
+        return ([scheme, participation, quorum, round, inputs],
+            p => new FederatedTrainOptions(p.GetValue(scheme), p.GetValue(participation), p.GetValue(quorum), p.GetValue(round), p.GetValue(inputs)));
     }
 
     public static string ModeLabel(TrainOptions options) =>
@@ -43,8 +49,8 @@ internal static class TrainFederated
         FederatedTrainOptions f = options.Federated ?? new();
         if (options.Mode != Mode)
         {
-            if (f.Scheme is not null || f.Participation is not null || f.MinQuorum is not null || f.StepsPerRound is not null)
-                throw new UserInputException("--scheme, --participation, --min-quorum and --steps-per-round need --mode federated");
+            if (f.Scheme is not null || f.Participation is not null || f.MinQuorum is not null || f.StepsPerRound is not null || f.ProjectionInputs is not null)
+                throw new UserInputException("--scheme, --participation, --min-quorum, --steps-per-round and --projection-inputs need --mode federated");
             return;
         }
         if (options.Learner != "actor-critic")
@@ -55,6 +61,8 @@ internal static class TrainFederated
             throw new UserInputException($"--participation must lie in (0, 1], got {p}");
         if (f.MinQuorum is < 1)
             throw new UserInputException($"--min-quorum must be at least 1, got {f.MinQuorum}");
+        if (f.ProjectionInputs is not null && !ProjectionInputsForms.Names.Contains(f.ProjectionInputs))
+            throw new UserInputException($"--projection-inputs: unknown form '{f.ProjectionInputs}'; use {string.Join(" or ", ProjectionInputsForms.Names)}");
         if (f.StepsPerRound is < 1)
             throw new UserInputException($"--steps-per-round must be at least 1, got {f.StepsPerRound}");
     }
@@ -76,21 +84,24 @@ internal static class TrainFederated
             MinQuorum = f.MinQuorum ?? 1,
             StepsPerRound = f.StepsPerRound ?? SlotCalendar.SlotsPerDay,
         };
+        IProjectionInputsForm form = ProjectionInputsForms.FromName(f.ProjectionInputs ?? HouseholdProjectionInputs.FormName);
         const string transcriptName = "transcript" + TranscriptFormat.Extension;
         var runner = new InProcessFederation(c.Scenario, new FederatedRunOptions
         {
             Scheme = scheme,
             Federation = fed,
+            ProjectionForm = form,
             TranscriptPath = Path.Combine(c.Folder, transcriptName),
             GroundTruthPath = Path.Combine(c.Folder, GroundTruthWriter.FileName),
         });
         FederatedRunResult r = runner.Run(d => c.Progress.WriteLine(FormattableString.Invariant(
-            $"train: federated {scheme.Name}: day {d.Day}/{days} cost {d.Cost:0.00} $ (no control {noControl[d.Day - 1].Cost:0.00}) peak {d.PeakKw:0.0} kW projections {d.Projections}")));
+            $"train: federated {scheme.Name} ({form.Name} projection inputs): day {d.Day}/{days} cost {d.Cost:0.00} $ (no control {noControl[d.Day - 1].Cost:0.00}) peak {d.PeakKw:0.0} kW projections {d.Projections}")));
         var summary = TrainingSummary.Create(Mode, r.Run, noControl, oracle, c.Scenario.Tariff.Name, c.Scenario.Name, households, c.Seed) with
         {
             Extra =
             [
                 new("scheme", r.Scheme),
+                new("projectionInputs", form.Name),
                 new("rounds", r.Rounds),
                 new("aggregatedRounds", r.AggregatedRounds),
                 new("failedRounds", r.FailedRounds),

@@ -179,6 +179,7 @@ public sealed class Coordinator
         {
             HouseholdMessage.BodyOneofCase.PartialSums => message.PartialSums.Step,
             HouseholdMessage.BodyOneofCase.ProjectionInputs => message.ProjectionInputs.Step,
+            HouseholdMessage.BodyOneofCase.BusShares => message.BusShares.Step,
             _ => -1,
         };
         _transcript.Received(_round, step, message);
@@ -266,7 +267,8 @@ public sealed class Coordinator
         {
             throw new ProtocolException($"household '{join.HouseholdId}' sends tan phi {join.TanPhi}");
         }
-        _registered[m] = new RegisteredHousehold(m, join.HouseholdId, join.BusId, join.TanPhi);
+        _registered[m] = new RegisteredHousehold(m, join.HouseholdId, join.BusId, join.TanPhi,
+            join.ProjectionPublicKey.IsEmpty ? null : join.ProjectionPublicKey.ToByteArray());
         _joined++;
         var accepted = new JoinAccepted
         {
@@ -284,6 +286,14 @@ public sealed class Coordinator
             return;
         }
         _projection = _setup.ProjectionForm.CreateCoordinatorSide(_setup.Feeder, _registered!, _setup.FixedLoads, _setup.Projection);
+        for (int h = 0; h < _m; h++)
+        {
+            var setupMessage = new CoordinatorMessage();
+            if (_projection.TryWriteSetup(h, setupMessage))
+            {
+                Send(outbox, setupMessage, -1);
+            }
+        }
         // The initial model: per household with its own columns (plain), or one broadcast of the shared part.
         if (_setup.Scheme.ColumnsCrossWire)
         {
@@ -388,10 +398,15 @@ public sealed class Coordinator
         {
             throw new ProtocolException($"{message.BodyCase} from household {m} in phase {Phase}");
         }
-        if (message.BodyCase == HouseholdMessage.BodyOneofCase.ProjectionInputs
-            && (message.ProjectionInputs.Round != _round || message.ProjectionInputs.Step != _step))
+        (int inRound, long inStep) = message.BodyCase switch
         {
-            throw new ProtocolException($"projection inputs from household {m} for round {message.ProjectionInputs.Round} step {message.ProjectionInputs.Step}; step {_step} of round {_round} is open");
+            HouseholdMessage.BodyOneofCase.ProjectionInputs => (message.ProjectionInputs.Round, message.ProjectionInputs.Step),
+            HouseholdMessage.BodyOneofCase.BusShares => (message.BusShares.Round, message.BusShares.Step),
+            _ => (_round, _step),
+        };
+        if (inRound != _round || inStep != _step)
+        {
+            throw new ProtocolException($"projection inputs from household {m} for round {inRound} step {inStep}; step {_step} of round {_round} is open");
         }
         if (_projectionSeen[m])
         {

@@ -58,7 +58,7 @@ public sealed class HouseholdAgent
     private readonly ParameterUpload _upload = new();
     private readonly JoinRequest _join;
     private IHouseholdSchemeSide? _schemeSide;
-    private IHouseholdProjectionSide? _projectionSide;
+    private readonly IHouseholdProjectionSide _projectionSide;
     private DenseNetwork? _actor, _critic;
     private NetworkWorkspace? _decision;
     private LocalTrainer? _trainer;
@@ -98,6 +98,8 @@ public sealed class HouseholdAgent
             BusId = identity.BusId,
             TanPhi = identity.TanPhi,
         };
+        _projectionSide = _form.CreateHouseholdSide(householdSeed);
+        _projectionSide.WriteJoin(_join);
     }
 
     /// <summary>The machine's phase.</summary>
@@ -163,9 +165,13 @@ public sealed class HouseholdAgent
             case CoordinatorMessage.BodyOneofCase.Training:
                 return OnTrainingCall(message.Training);
             default:
-                if (Phase == HouseholdPhase.AwaitingSetpoint && _projectionSide!.TryReadSetpoint(message, _flexMin, _flexMax, out double s))
+                if (_index >= 0 && Phase != HouseholdPhase.AwaitingAdmission && _projectionSide.TryReadSetup(_index, message))
                 {
-                    CheckStep(message.Setpoint.Round, message.Setpoint.Step, "final setpoint");
+                    return null;
+                }
+                if (Phase == HouseholdPhase.AwaitingSetpoint && _projectionSide.TryReadSetpoint(message, _flexMin, _flexMax, out double s, out int sRound, out long sStep))
+                {
+                    CheckStep(sRound, sStep, "final setpoint");
                     _setpoint = s;
                     Phase = HouseholdPhase.AwaitingCost;
                     return null;
@@ -281,7 +287,6 @@ public sealed class HouseholdAgent
         _uploadActor = new float[ownA + _actor.SharedRange().Length];
         _uploadCritic = new float[ownC + _critic.SharedRange().Length];
         _schemeSide = _scheme.CreateHouseholdSide(m, _seed);
-        _projectionSide = _form.CreateHouseholdSide(m);
         if (!_scheme.ColumnsCrossWire)
         {
             // The household draws its own first-layer columns (same distribution as the coordinator's initialisation).
@@ -395,7 +400,7 @@ public sealed class HouseholdAgent
         b.Cost[row] = 0;
         b.Count = row + 1;
         _proposal = Math.Clamp(_action[0], _flexMin, _flexMax);
-        _projectionSide!.WriteInputs(_round, _step, _proposal, _flexMin, _flexMax, _baseKw, _out);
+        _projectionSide.WriteInputs(_round, _step, _proposal, _flexMin, _flexMax, _baseKw, _out);
         _out.HouseholdIndex = _index;
         Phase = HouseholdPhase.AwaitingSetpoint;
         return _out;

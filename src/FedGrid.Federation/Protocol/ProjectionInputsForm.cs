@@ -10,22 +10,24 @@ namespace FedGrid.Federation.Protocol;
 /// <param name="Id">Household id.</param>
 /// <param name="BusId">Bus it is connected to.</param>
 /// <param name="TanPhi">Reactive per real power.</param>
-public sealed record RegisteredHousehold(int Index, string Id, string BusId, double TanPhi);
+/// <param name="ProjectionPublicKey">Public key for the bus-aggregate form's pairwise masks (null when the household sent none).</param>
+public sealed record RegisteredHousehold(int Index, string Id, string BusId, double TanPhi, byte[]? ProjectionPublicKey = null);
 
 /// <summary>
 /// How the safety projection's inputs reach the coordinator and its result gets back (DESIGN.md §2). The
 /// <c>household</c> form (<see cref="HouseholdProjectionInputs"/>) sends each household's proposal, bounds and base load;
-/// the <c>bus-aggregate</c> form of a later issue plugs in here with its own messages.
+/// the <c>bus-aggregate</c> form (<see cref="BusAggregateProjectionInputs"/>) sends masked shares whose sum over a bus is
+/// the bus's totals.
 /// </summary>
 public interface IProjectionInputsForm
 {
     /// <summary>Form name ("household", "bus-aggregate").</summary>
     string Name { get; }
 
-    /// <summary>Creates household m's side.</summary>
-    /// <param name="householdIndex">m.</param>
+    /// <summary>Creates a household's side (before it joins: its index is not known yet).</summary>
+    /// <param name="householdSeed">The household's own seed (the bus-aggregate form draws its masking key from it).</param>
     /// <returns>The household side.</returns>
-    IHouseholdProjectionSide CreateHouseholdSide(int householdIndex);
+    IHouseholdProjectionSide CreateHouseholdSide(ulong householdSeed);
 
     /// <summary>Creates the coordinator's side for a feeder and its registered households.</summary>
     /// <param name="feeder">The feeder.</param>
@@ -40,6 +42,18 @@ public interface IProjectionInputsForm
 /// <summary>A household's part of the projection exchange. Allocates nothing per step.</summary>
 public interface IHouseholdProjectionSide
 {
+    /// <summary>Adds what the form needs to the join request (the bus-aggregate form: the household's public key).</summary>
+    /// <param name="join">The join request.</param>
+    void WriteJoin(JoinRequest join)
+    {
+    }
+
+    /// <summary>Takes a set-up message the coordinator sends after admission; false when the message is not one.</summary>
+    /// <param name="ownIndex">The household's index m.</param>
+    /// <param name="message">The message.</param>
+    /// <returns>Whether it was this form's set-up message.</returns>
+    bool TryReadSetup(int ownIndex, CoordinatorMessage message) => false;
+
     /// <summary>Writes the step's projection inputs into a message the household sends.</summary>
     /// <param name="round">Round.</param>
     /// <param name="step">Decision step.</param>
@@ -55,13 +69,21 @@ public interface IHouseholdProjectionSide
     /// <param name="flexMinKw">The household's least flexible power of the step, kW.</param>
     /// <param name="flexMaxKw">Its desired flexible power, kW.</param>
     /// <param name="setpointKw">Receives the setpoint, inside the box.</param>
+    /// <param name="round">Receives the reply's round.</param>
+    /// <param name="step">Receives the reply's step.</param>
     /// <returns>Whether the message was this form's reply.</returns>
-    bool TryReadSetpoint(CoordinatorMessage message, double flexMinKw, double flexMaxKw, out double setpointKw);
+    bool TryReadSetpoint(CoordinatorMessage message, double flexMinKw, double flexMaxKw, out double setpointKw, out int round, out long step);
 }
 
 /// <summary>The coordinator's part of the projection exchange.</summary>
 public interface ICoordinatorProjectionSide
 {
+    /// <summary>Writes household m's set-up message, sent once after every household joined; false when the form sends none.</summary>
+    /// <param name="household">m.</param>
+    /// <param name="message">The outgoing message (its recipient and body are set).</param>
+    /// <returns>Whether there is a message.</returns>
+    bool TryWriteSetup(int household, CoordinatorMessage message) => false;
+
     /// <summary>Starts a step.</summary>
     void Begin();
 
@@ -98,12 +120,21 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
     public string Name => FormName;
 
     /// <inheritdoc />
-    public IHouseholdProjectionSide CreateHouseholdSide(int householdIndex) => new HouseholdSide();
+    public IHouseholdProjectionSide CreateHouseholdSide(ulong householdSeed) => new HouseholdSide();
 
     /// <inheritdoc />
     public ICoordinatorProjectionSide CreateCoordinatorSide(Feeder feeder, IReadOnlyList<RegisteredHousehold> households,
         IReadOnlyList<(string BusId, double Kw, double Kvar)> fixedLoads, ProjectionOptions? options) =>
         new CoordinatorSide(feeder, households, fixedLoads, options);
+
+    internal static ProjectionOutcome Outcome(ProjectionStatus status) => status switch
+    {
+        ProjectionStatus.AlreadyFeasible => ProjectionOutcome.AlreadyFeasible,
+        ProjectionStatus.Projected => ProjectionOutcome.Projected,
+        ProjectionStatus.Unverified => ProjectionOutcome.Unverified,
+        ProjectionStatus.Infeasible => ProjectionOutcome.Infeasible,
+        _ => ProjectionOutcome.SolverFailure,
+    };
 
     private sealed class HouseholdSide : IHouseholdProjectionSide
     {
@@ -120,13 +151,17 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
             message.ProjectionInputs = _inputs;
         }
 
-        public bool TryReadSetpoint(CoordinatorMessage message, double flexMinKw, double flexMaxKw, out double setpointKw)
+        public bool TryReadSetpoint(CoordinatorMessage message, double flexMinKw, double flexMaxKw, out double setpointKw, out int round, out long step)
         {
             if (message.BodyCase != CoordinatorMessage.BodyOneofCase.Setpoint)
             {
                 setpointKw = 0;
+                round = -1;
+                step = -1;
                 return false;
             }
+            round = message.Setpoint.Round;
+            step = message.Setpoint.Step;
             double s = message.Setpoint.SetpointKw;
             if (!double.IsFinite(s))
             {
@@ -233,16 +268,27 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
             r.Round = round;
             r.Step = step;
             r.SetpointKw = _result.SetpointKw[household];
-            r.Outcome = _result.Status switch
-            {
-                ProjectionStatus.AlreadyFeasible => ProjectionOutcome.AlreadyFeasible,
-                ProjectionStatus.Projected => ProjectionOutcome.Projected,
-                ProjectionStatus.Unverified => ProjectionOutcome.Unverified,
-                ProjectionStatus.Infeasible => ProjectionOutcome.Infeasible,
-                _ => ProjectionOutcome.SolverFailure,
-            };
+            r.Outcome = Outcome(_result.Status);
             message.HouseholdIndex = household;
             message.Setpoint = r;
         }
     }
+}
+
+/// <summary>The projection-input forms by name.</summary>
+public static class ProjectionInputsForms
+{
+    /// <summary>Names of the forms.</summary>
+    public static IReadOnlyList<string> Names { get; } = [HouseholdProjectionInputs.FormName, BusAggregateProjectionInputs.FormName];
+
+    /// <summary>The form of a name.</summary>
+    /// <param name="name">"household" or "bus-aggregate".</param>
+    /// <returns>The form.</returns>
+    /// <exception cref="ArgumentException">Unknown name.</exception>
+    public static IProjectionInputsForm FromName(string name) => name switch
+    {
+        HouseholdProjectionInputs.FormName => new HouseholdProjectionInputs(),
+        BusAggregateProjectionInputs.FormName => new BusAggregateProjectionInputs(),
+        _ => throw new ArgumentException($"unknown projection-inputs form '{name}'; use {string.Join(" or ", Names)}", nameof(name)),
+    };
 }

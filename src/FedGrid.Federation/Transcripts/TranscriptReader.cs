@@ -28,6 +28,12 @@ public enum RecordKind
     Event,
     /// <summary>A received or sent message of a kind this reader does not know (newer writer).</summary>
     Unknown,
+    /// <summary>Received <see cref="Wire.BusShares"/> (bus-aggregate projection inputs).</summary>
+    BusShares,
+    /// <summary>Sent <see cref="Wire.BusCorrection"/>.</summary>
+    BusCorrection,
+    /// <summary>Sent <see cref="Wire.BusPeers"/>.</summary>
+    BusPeers,
 }
 
 /// <summary>Helpers on transcript records.</summary>
@@ -47,6 +53,7 @@ public static class TranscriptRecords
                 HouseholdMessage.BodyOneofCase.PartialSums => RecordKind.PartialSums,
                 HouseholdMessage.BodyOneofCase.ProjectionInputs => RecordKind.ProjectionInputs,
                 HouseholdMessage.BodyOneofCase.Upload => RecordKind.Upload,
+                HouseholdMessage.BodyOneofCase.BusShares => RecordKind.BusShares,
                 _ => RecordKind.Unknown,
             },
             TranscriptRecord.EntryOneofCase.Sent => record.Sent.BodyCase switch
@@ -56,6 +63,8 @@ public static class TranscriptRecords
                 CoordinatorMessage.BodyOneofCase.Sums => RecordKind.Sums,
                 CoordinatorMessage.BodyOneofCase.Setpoint => RecordKind.Setpoint,
                 CoordinatorMessage.BodyOneofCase.Training => RecordKind.Training,
+                CoordinatorMessage.BodyOneofCase.BusCorrection => RecordKind.BusCorrection,
+                CoordinatorMessage.BodyOneofCase.BusPeers => RecordKind.BusPeers,
                 _ => RecordKind.Unknown,
             },
             TranscriptRecord.EntryOneofCase.Event => RecordKind.Event,
