@@ -132,7 +132,7 @@ public sealed class GradientMatchingTests
     {
         // 2 samples × (3 private + 32 rows) = 70 unknowns against 5 × 32 = 160 numbers: determined up to swapping the samples,
         // but the only public feature (hour of day) differs by 1/96 between consecutive slots, so the match is ill-conditioned
-        // (measured: best relative residual about 5e-3 after Adam and L-BFGS). Whatever the optimiser reaches, the attack must
+        // (measured: best relative residual about 5e-3, also when refined by L-BFGS). Whatever the optimiser reaches, the attack must
         // either be right to within 1 % or keep the prior and say so.
         (AttackerView view, double[][] x) = Build(samples: 2, neurons: 16, networks: 2, seed: 5);
         (List<Reconstruction> recs, List<Identifiability> ident) = Run(view);

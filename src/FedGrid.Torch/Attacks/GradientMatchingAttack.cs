@@ -11,9 +11,6 @@ public sealed record GradientMatchingOptions
     /// <summary>Adam iterations per round.</summary>
     public int Iterations { get; init; } = 1500;
 
-    /// <summary>L-BFGS iterations after Adam (0: none).</summary>
-    public int RefinementIterations { get; init; } = 200;
-
     /// <summary>Adam step size (decays linearly to a tenth over the iterations).</summary>
     public double LearningRate { get; init; } = 0.05;
 
@@ -211,22 +208,6 @@ public sealed class GradientMatchingAttack : IViewAttack
                 loss = loss + _options.TotalVariationWeight * ((xHat[1..] - xHat[..^1]) * mask[1..]).abs().sum() / k;
             loss.backward();
             adam.step();
-        }
-        // Refinement by L-BFGS on the same loss (the landscape is ill-conditioned when samples are close in time).
-        if (_options.RefinementIterations > 0)
-        {
-            var lbfgs = optim.LBFGS([xFree], 1, _options.RefinementIterations, null, 1e-14, 1e-16, 20);
-            lbfgs.step(() =>
-            {
-                lbfgs.zero_grad();
-                Tensor xHat = fixedPart + xFree * mask;
-                Tensor model = Model(xHat);
-                Tensor loss = 1 - (model * target).sum() / (model.norm() + 1e-300);
-                if (_options.TotalVariationWeight > 0 && k > 1)
-                    loss = loss + _options.TotalVariationWeight * ((xHat[1..] - xHat[..^1]) * mask[1..]).abs().sum() / k;
-                loss.backward();
-                return loss;
-            });
         }
         using (no_grad())
         {
