@@ -13,5 +13,6 @@ internal static class Verbs
         yield return Commands.OptimumCommand.Create();
         yield return Commands.ProjectCommand.Create();
         yield return Commands.AuditCommand.Create();
+        yield return Commands.SweepCommand.Create();
     }
 }

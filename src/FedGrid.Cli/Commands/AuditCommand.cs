@@ -33,6 +33,22 @@ internal static class AuditCommand
         return cmd;
     }
 
+    /// <summary>Reads a run folder, runs every attack (and gradient matching when given) and scores against the folder's ground truth if any.</summary>
+    public static (AuditRun Run, AttackResults Results, ScoreCard? Card) Audit(string runDir, bool priors, bool meter, GradientMatchingOptions? gradientMatching, TextWriter progress)
+    {
+        var watch = Stopwatch.StartNew();
+        AuditRun run;
+        try { run = RunFolderReader.Load(runDir, priors, meter); }
+        catch (RunFolderException e) { throw new UserInputException(e.Message); }
+        progress.WriteLine($"audit: read {run.View.Households.Count} households, {run.View.SlotCount} slots ({watch.Elapsed.TotalSeconds:0.0} s)");
+        if (run.TranscriptNote is { } note) progress.WriteLine("audit: " + note);
+        IViewAttack[] extra = gradientMatching is null ? [] : [new GradientMatchingAttack(gradientMatching, progress)];
+        AttackResults results = Auditor.Attack(run.View, new AttackOptions { UsePriors = priors, UseSubstationMeter = meter }, extra);
+        ScoreCard? card = run.Truth is null ? null : Scorer.Score(run.View, results, run.Truth);
+        progress.WriteLine($"audit: attacks and scoring done ({watch.Elapsed.TotalSeconds:0.0} s){(card is null ? "; no ground truth in the folder: identifiability only" : "")}");
+        return (run, results, card);
+    }
+
     /// <summary>Checks the gradient-matching settings and returns them.</summary>
     public static GradientMatchingOptions GradientMatching(int iterations, double tv)
     {
@@ -49,16 +65,7 @@ internal static class AuditCommand
             if (!SideInfoNames.Contains(n, StringComparer.Ordinal))
                 throw new UserInputException($"--side-info: unknown '{n}'; use a comma-separated list of {string.Join(", ", SideInfoNames)}");
         bool priors = names.Contains("priors"), meter = names.Contains("substation-meter");
-        var watch = Stopwatch.StartNew();
-        AuditRun run;
-        try { run = RunFolderReader.Load(runDir, priors, meter); }
-        catch (RunFolderException e) { throw new UserInputException(e.Message); }
-        progress.WriteLine($"audit: read {run.View.Households.Count} households, {run.View.SlotCount} slots ({watch.Elapsed.TotalSeconds:0.0} s)");
-        if (run.TranscriptNote is { } note) progress.WriteLine("audit: " + note);
-        IViewAttack[] extra = gradientMatching is null ? [] : [new GradientMatchingAttack(gradientMatching, progress)];
-        AttackResults results = Auditor.Attack(run.View, new AttackOptions { UsePriors = priors, UseSubstationMeter = meter }, extra);
-        ScoreCard? card = run.Truth is null ? null : Scorer.Score(run.View, results, run.Truth);
-        progress.WriteLine($"audit: attacks and scoring done ({watch.Elapsed.TotalSeconds:0.0} s){(card is null ? "; no ground truth in the folder: identifiability only" : "")}");
+        (AuditRun run, AttackResults results, ScoreCard? card) = Audit(runDir, priors, meter, gradientMatching, progress);
         File.WriteAllText(Path.Combine(runDir, "audit.json"), AuditDocument.FullJson(run.Context, run.View, results, card));
         if (writeReport)
         {
