@@ -1,4 +1,7 @@
 using BenchmarkDotNet.Attributes;
+using BenchmarkDotNet.Configs;
+using BenchmarkDotNet.Jobs;
+using BenchmarkDotNet.Toolchains.InProcess.Emit;
 using FedGrid.Audit;
 using FedGrid.Audit.Attacks;
 using FedGrid.Audit.Runs;
@@ -17,7 +20,7 @@ namespace FedGrid.Bench;
 /// The run is trained once in the global setup (or taken from FEDGRID_AUDIT_RUN_PLAIN). In-process (TorchSharp's native
 /// files are in the bench output, patched by FedGrid.Torch.targets).
 /// </summary>
-[Config(typeof(AuditBenchmarkConfig))]
+[Config(typeof(GradientMatchingBenchmarkConfig))]
 [MemoryDiagnoser]
 public class GradientMatchingBenchmarks
 {
@@ -63,4 +66,13 @@ public class GradientMatchingBenchmarks
         UploadRatioAttack.Run(_one!, new AttackOptions(), recs, [], []);
         return recs.Count;
     }
+}
+
+/// <summary>One in-process job of three iterations without warm-up, allowed to run long (one iteration is tens of seconds).</summary>
+public sealed class GradientMatchingBenchmarkConfig : ManualConfig
+{
+    /// <summary>Creates the configuration.</summary>
+    public GradientMatchingBenchmarkConfig() =>
+        AddJob(Job.Default.WithToolchain(new InProcessEmitToolchain(TimeSpan.FromMinutes(30), logOutput: true)).WithLaunchCount(1).WithWarmupCount(0)
+            .WithIterationCount(3).WithInvocationCount(1).WithUnrollFactor(1));
 }

@@ -78,6 +78,7 @@ public sealed class GradientMatchingAttack : IViewAttack
         ArgumentNullException.ThrowIfNull(notes);
         int attacked = 0;
         var watch = System.Diagnostics.Stopwatch.StartNew();
+
         int withUploads = view.Households.Count(h => h.Rounds.Any(r => r.Updates.Count > 0));
         for (int m = 0; m < view.Households.Count; m++)
         {
