@@ -17,5 +17,6 @@ internal static class Verbs
         yield return Commands.HouseholdCommand.Create();
         yield return Commands.LaunchCommand.Create();
         yield return Commands.CertificatesCommand.Create();
+        yield return Commands.SweepCommand.Create();
     }
 }

@@ -35,6 +35,23 @@ public sealed class AuditCommandTests
     }
 
     [Fact]
+    public void Gradient_matching_adds_an_uploads_row_and_checks_its_settings()
+    {
+        string dir = TrainedRun("plain");
+        var (code, stdout, stderr) = CliProcess.Run("audit", dir, "--gradient-matching", "--gradient-matching-iterations", "20", "--json");
+        Assert.True(code == 0, stderr);
+        using JsonDocument doc = JsonDocument.Parse(stdout);
+        JsonElement[] rows = doc.RootElement.GetProperty("channels").EnumerateArray()
+            .Where(c => c.GetProperty("attack").GetString() == "gradientMatching").ToArray();
+        Assert.Equal(3, rows.Length);
+        Assert.All(rows, r => Assert.Equal("uploads", r.GetProperty("channel").GetString()));
+        Assert.Contains("gradient matching 32/32 households", stderr);
+        var (bad, _, err) = CliProcess.Run("audit", dir, "--gradient-matching", "--gradient-matching-iterations", "0");
+        Assert.Equal(2, bad);
+        Assert.Contains("--gradient-matching-iterations", err);
+    }
+
+    [Fact]
     public void Bad_side_information_and_missing_folder_exit_with_code_2()
     {
         var (code, _, err) = CliProcess.Run("audit", "/nonexistent/run", "--json");

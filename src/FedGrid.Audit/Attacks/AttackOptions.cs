@@ -16,15 +16,27 @@ public sealed record AttackOptions
     public double FlatPriorStdKw { get; init; } = 10;
 }
 
-/// <summary>The prior an attack may use under the declared side information.</summary>
-internal static class AttackPrior
+/// <summary>The prior an attack may use under the declared side information (shared by every attack, including ones supplied from outside).</summary>
+public static class AttackPrior
 {
+    /// <summary>Prior mean of a quantity per slot, or zeros without priors.</summary>
+    /// <param name="view">The attacker's view.</param>
+    /// <param name="options">Side information in use.</param>
+    /// <param name="household">Household index.</param>
+    /// <param name="q">The quantity.</param>
+    /// <returns>The mean, kW per slot.</returns>
     public static double[] Mean(AttackerView view, AttackOptions options, int household, Quantity q)
     {
         if (options.UsePriors && view.Households[household].Priors.TryGetValue(q, out QuantityPrior? p)) return p.MeanKw;
         return new double[view.SlotCount];
     }
 
+    /// <summary>Prior spread of a quantity (one standard deviation), or the flat prior's spread without priors.</summary>
+    /// <param name="view">The attacker's view.</param>
+    /// <param name="options">Side information in use.</param>
+    /// <param name="household">Household index.</param>
+    /// <param name="q">The quantity.</param>
+    /// <returns>The spread, kW.</returns>
     public static double Std(AttackerView view, AttackOptions options, int household, Quantity q)
     {
         if (options.UsePriors && view.Households[household].Priors.TryGetValue(q, out QuantityPrior? p)) return Math.Max(p.StdKw, 1e-6);
@@ -32,6 +44,10 @@ internal static class AttackPrior
     }
 
     /// <summary>Household total used for splitting bus aggregates: the prior total, or 1 (equal shares) without priors.</summary>
+    /// <param name="view">The attacker's view.</param>
+    /// <param name="options">Side information in use.</param>
+    /// <param name="household">Household index.</param>
+    /// <returns>The total, kW per slot.</returns>
     public static double[] Total(AttackerView view, AttackOptions options, int household)
     {
         if (options.UsePriors) return view.Households[household].PriorTotalKw;
@@ -41,6 +57,11 @@ internal static class AttackPrior
     }
 
     /// <summary>A reconstruction that is the prior everywhere (variance = prior spread²).</summary>
+    /// <param name="view">The attacker's view.</param>
+    /// <param name="options">Side information in use.</param>
+    /// <param name="household">Household index.</param>
+    /// <param name="q">The quantity.</param>
+    /// <returns>Estimate and variance per slot.</returns>
     public static (double[] Estimate, double[] Variance) Fallback(AttackerView view, AttackOptions options, int household, Quantity q)
     {
         double[] est = (double[])Mean(view, options, household, q).Clone();
@@ -50,5 +71,6 @@ internal static class AttackPrior
         return (est, v);
     }
 
+    /// <summary>Smallest variance an attack may claim (keeps inverse-variance weights finite).</summary>
     public const double TinyVariance = 1e-18;
 }

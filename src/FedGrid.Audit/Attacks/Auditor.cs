@@ -9,8 +9,9 @@ public static class Auditor
     /// <summary>Runs all attacks.</summary>
     /// <param name="view">What the coordinator holds.</param>
     /// <param name="options">Declared side information; null for all of it.</param>
+    /// <param name="extraAttacks">Further attacks supplied by the caller (run after the built-in ones, before the joint fusion); null for none.</param>
     /// <returns>Reconstructions, identifiability figures, occupancy guesses and notes.</returns>
-    public static AttackResults Attack(AttackerView view, AttackOptions? options = null)
+    public static AttackResults Attack(AttackerView view, AttackOptions? options = null, IReadOnlyList<IViewAttack>? extraAttacks = null)
     {
         ArgumentNullException.ThrowIfNull(view);
         options ??= new AttackOptions();
@@ -22,6 +23,7 @@ public static class Auditor
         UploadRatioAttack.Run(view, options, recs, ident, notes);
         ProjectionInputAttack.Run(view, options, recs);
         PhysicalFloorAttack.Run(view, options, recs, notes);
+        foreach (IViewAttack extra in extraAttacks ?? []) extra.Run(view, options, recs, ident, notes);
         List<Reconstruction> joint = JointAttack.Fuse(view, options, recs);
         recs.AddRange(joint);
         var occ = new List<OccupancyGuess>();

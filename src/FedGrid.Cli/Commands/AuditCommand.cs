@@ -5,6 +5,7 @@ using FedGrid.Audit;
 using FedGrid.Audit.Attacks;
 using FedGrid.Audit.Runs;
 using FedGrid.Audit.Scoring;
+using FedGrid.Torch.Attacks;
 
 namespace FedGrid.Cli.Commands;
 
@@ -20,31 +21,51 @@ internal static class AuditCommand
         var side = new Option<string?>("--side-info") { Description = "side information the attacker may use, comma-separated: priors, substation-meter (default: priors)" };
         var json = new Option<bool>("--json") { Description = "print only the summary as JSON on stdout" };
         var report = new Option<bool>("--report") { Description = "also write the offline HTML report (exposure-report.html) into the run folder" };
+        var gm = new Option<bool>("--gradient-matching") { Description = "also run gradient matching on the uploads (Geiping et al. 2020, TorchSharp autograd; slow: seconds per household and round)" };
+        var gmIterations = new Option<int>("--gradient-matching-iterations") { Description = "Adam iterations per round for --gradient-matching", DefaultValueFactory = _ => new GradientMatchingOptions().Iterations };
+        var gmTv = new Option<double>("--gradient-matching-tv") { Description = "weight of the total-variation prior over consecutive slots for --gradient-matching (0: off)" };
         var cmd = new Command("audit", "Attack a run's transcript as an honest-but-curious coordinator: exposure per channel, household and quantity, against a prior-only guess.")
         {
-            dir, side, json, report,
+            dir, side, json, report, gm, gmIterations, gmTv,
         };
-        cmd.SetAction(parse => Run(parse.GetValue(dir)!, parse.GetValue(side), parse.GetValue(json), parse.GetValue(report), Console.Out, Console.Error));
+        cmd.SetAction(parse => Run(parse.GetValue(dir)!, parse.GetValue(side), parse.GetValue(json), parse.GetValue(report), Console.Out, Console.Error,
+            parse.GetValue(gm) ? GradientMatching(parse.GetValue(gmIterations), parse.GetValue(gmTv)) : null));
         return cmd;
     }
 
-    /// <summary>Audits and prints; writes audit.json (and the report) into the run folder. Returns the exit code.</summary>
-    public static int Run(string runDir, string? sideInfo, bool asJson, bool writeReport, TextWriter output, TextWriter progress)
+    /// <summary>Reads a run folder, runs every attack (and gradient matching when given) and scores against the folder's ground truth if any.</summary>
+    public static (AuditRun Run, AttackResults Results, ScoreCard? Card) Audit(string runDir, bool priors, bool meter, GradientMatchingOptions? gradientMatching, TextWriter progress)
     {
-        var names = (sideInfo ?? "priors").Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries);
-        foreach (string n in names)
-            if (!SideInfoNames.Contains(n, StringComparer.Ordinal))
-                throw new UserInputException($"--side-info: unknown '{n}'; use a comma-separated list of {string.Join(", ", SideInfoNames)}");
-        bool priors = names.Contains("priors"), meter = names.Contains("substation-meter");
         var watch = Stopwatch.StartNew();
         AuditRun run;
         try { run = RunFolderReader.Load(runDir, priors, meter); }
         catch (RunFolderException e) { throw new UserInputException(e.Message); }
         progress.WriteLine($"audit: read {run.View.Households.Count} households, {run.View.SlotCount} slots ({watch.Elapsed.TotalSeconds:0.0} s)");
         if (run.TranscriptNote is { } note) progress.WriteLine("audit: " + note);
-        AttackResults results = Auditor.Attack(run.View, new AttackOptions { UsePriors = priors, UseSubstationMeter = meter });
+        IViewAttack[] extra = gradientMatching is null ? [] : [new GradientMatchingAttack(gradientMatching, progress)];
+        AttackResults results = Auditor.Attack(run.View, new AttackOptions { UsePriors = priors, UseSubstationMeter = meter }, extra);
         ScoreCard? card = run.Truth is null ? null : Scorer.Score(run.View, results, run.Truth);
         progress.WriteLine($"audit: attacks and scoring done ({watch.Elapsed.TotalSeconds:0.0} s){(card is null ? "; no ground truth in the folder: identifiability only" : "")}");
+        return (run, results, card);
+    }
+
+    /// <summary>Checks the gradient-matching settings and returns them.</summary>
+    public static GradientMatchingOptions GradientMatching(int iterations, double tv)
+    {
+        if (iterations < 1) throw new UserInputException($"--gradient-matching-iterations: must be at least 1 (got {iterations})");
+        if (!(tv >= 0) || double.IsInfinity(tv)) throw new UserInputException($"--gradient-matching-tv: must be a finite number ≥ 0 (got {tv})");
+        return new GradientMatchingOptions { Iterations = iterations, TotalVariationWeight = tv };
+    }
+
+    /// <summary>Audits and prints; writes audit.json (and the report) into the run folder. Returns the exit code.</summary>
+    public static int Run(string runDir, string? sideInfo, bool asJson, bool writeReport, TextWriter output, TextWriter progress, GradientMatchingOptions? gradientMatching = null)
+    {
+        var names = (sideInfo ?? "priors").Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries);
+        foreach (string n in names)
+            if (!SideInfoNames.Contains(n, StringComparer.Ordinal))
+                throw new UserInputException($"--side-info: unknown '{n}'; use a comma-separated list of {string.Join(", ", SideInfoNames)}");
+        bool priors = names.Contains("priors"), meter = names.Contains("substation-meter");
+        (AuditRun run, AttackResults results, ScoreCard? card) = Audit(runDir, priors, meter, gradientMatching, progress);
         File.WriteAllText(Path.Combine(runDir, "audit.json"), AuditDocument.FullJson(run.Context, run.View, results, card));
         if (writeReport)
         {

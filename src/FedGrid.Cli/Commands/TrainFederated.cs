@@ -15,8 +15,9 @@ namespace FedGrid.Cli.Commands;
 /// <param name="MinQuorum">Fewest uploads per aggregated round, or null for 1.</param>
 /// <param name="StepsPerRound">Decision steps per round, or null for one day (96).</param>
 /// <param name="ProjectionInputs">Projection-input form ("household" or "bus-aggregate"), or null for household.</param>
+/// <param name="NoiseMultiplier">Noise multiplier of a differentially private scheme (set by <c>fedgrid sweep --noise</c>), or null.</param>
 internal sealed record FederatedTrainOptions(string? Scheme = null, double? Participation = null, int? MinQuorum = null, int? StepsPerRound = null,
-    string? ProjectionInputs = null);
+    string? ProjectionInputs = null, double? NoiseMultiplier = null);
 
 /// <summary>
 /// The federated mode of <c>fedgrid train</c>: the protocol of <see cref="InProcessFederation"/> in one process, with the
@@ -49,7 +50,7 @@ internal static class TrainFederated
         FederatedTrainOptions f = options.Federated ?? new();
         if (options.Mode != Mode)
         {
-            if (f.Scheme is not null || f.Participation is not null || f.MinQuorum is not null || f.StepsPerRound is not null || f.ProjectionInputs is not null)
+            if (f.Scheme is not null || f.Participation is not null || f.MinQuorum is not null || f.StepsPerRound is not null || f.ProjectionInputs is not null || f.NoiseMultiplier is not null)
                 throw new UserInputException("--scheme, --participation, --min-quorum, --steps-per-round and --projection-inputs need --mode federated");
             return;
         }
@@ -57,6 +58,8 @@ internal static class TrainFederated
             throw new UserInputException($"--learner: the federated mode trains the actor-critic only (got '{options.Learner}')");
         if (f.Scheme is not null and not ClearScheme.PlainName and not ClearScheme.PrivateColumnsName)
             throw new UserInputException($"--scheme: unknown scheme '{f.Scheme}'; use {ClearScheme.PlainName} or {ClearScheme.PrivateColumnsName}");
+        if (f.NoiseMultiplier is not null)
+            throw new UserInputException($"a noise multiplier needs a scheme of the train verb that takes one; '{f.Scheme ?? ClearScheme.PlainName}' does not");
         if (f.Participation is { } p && !(p > 0 && p <= 1))
             throw new UserInputException($"--participation must lie in (0, 1], got {p}");
         if (f.MinQuorum is < 1)

@@ -1,0 +1,49 @@
+using System.Text.Json;
+using FedGrid.Cli.Commands;
+
+namespace FedGrid.Cli.Tests;
+
+public sealed class SweepCommandTests
+{
+    [Fact]
+    public void Json_rows_have_the_contract_fields_and_the_table_and_plot_are_written()
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-sweep-test-" + Guid.NewGuid().ToString("N"));
+        var stdout = new StringWriter();
+        var stderr = new StringWriter();
+        int code = SweepCommand.Run("plain,private-columns", null, 1, dir, asJson: true, stdout, stderr);
+        Assert.True(code == 0, stderr.ToString());
+        using JsonDocument doc = JsonDocument.Parse(stdout.ToString());
+        JsonElement[] rows = doc.RootElement.EnumerateArray().ToArray();
+        Assert.Equal(2, rows.Length);
+        foreach (JsonElement r in rows)
+            foreach (string f in new[] { "scheme", "noiseMultiplier", "epsilon", "savingsCapturedPct", "violationSlots", "partialSumsExposureRatio", "uploadsExposureRatio" })
+                Assert.True(r.TryGetProperty(f, out _), $"missing {f}");
+        JsonElement plain = rows.Single(r => r.GetProperty("scheme").GetString() == "plain");
+        JsonElement priv = rows.Single(r => r.GetProperty("scheme").GetString() == "private-columns");
+        // The audit goal on a plain run: partial sums give base load away (relative RMSE ≤ 1e-6, so the ratio is tiny).
+        Assert.True(plain.GetProperty("partialSumsExposureRatio").GetDouble() < 1e-3);
+        Assert.True(priv.GetProperty("partialSumsExposureRatio").GetDouble() > plain.GetProperty("partialSumsExposureRatio").GetDouble());
+        Assert.Equal(JsonValueKind.Null, plain.GetProperty("noiseMultiplier").ValueKind);
+        // The same figure the train verb's own summary reports.
+        using JsonDocument summary = JsonDocument.Parse(File.ReadAllText(Path.Combine(dir, "plain", "summary.json")));
+        Assert.Equal(summary.RootElement.GetProperty("savingsCapturedPct").GetDouble(), plain.GetProperty("savingsCapturedPct").GetDouble());
+        string[] csv = File.ReadAllLines(Path.Combine(dir, "sweep.csv"));
+        Assert.Equal(3, csv.Length);
+        Assert.StartsWith("scheme,noiseMultiplier,epsilon,savingsCapturedPct,violationSlots,partialSumsExposureRatio,uploadsExposureRatio", csv[0]);
+        Assert.Contains("| private-columns |", File.ReadAllText(Path.Combine(dir, "sweep.md")));
+        byte[] png = File.ReadAllBytes(Path.Combine(dir, "privacy-utility.png"));
+        Assert.Equal(new byte[] { 0x89, 0x50, 0x4E, 0x47 }, png[..4]); // PNG signature (ISO/IEC 15948)
+    }
+
+    [Fact]
+    public void Schemes_and_noise_are_checked_before_any_run()
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-sweep-bad-" + Guid.NewGuid().ToString("N"));
+        var e1 = Assert.Throws<UserInputException>(() => SweepCommand.Run("plain,nonsense", null, 1, dir, true, TextWriter.Null, TextWriter.Null));
+        Assert.Contains("unknown scheme 'nonsense'", e1.Message);
+        var e2 = Assert.Throws<UserInputException>(() => SweepCommand.Run("plain", "0.5,x", 1, dir, true, TextWriter.Null, TextWriter.Null));
+        Assert.Contains("--noise: 'x'", e2.Message);
+        Assert.False(Directory.Exists(Path.Combine(dir, "plain")));
+    }
+}
