@@ -184,6 +184,8 @@ public static class CoordinatorHost
                 l.UseHttps(https =>
                 {
                     https.ServerCertificate = server;
+                    // Tens of gateways handshaking at once on a busy machine take longer than Kestrel's 10 s default.
+                    https.HandshakeTimeout = TimeSpan.FromMinutes(2);
                     https.ClientCertificateMode = ClientCertificateMode.RequireCertificate;
                     https.CheckCertificateRevocation = false;
                     // Only certificates issued by the scenario CA for client authentication.

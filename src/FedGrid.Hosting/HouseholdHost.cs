@@ -30,6 +30,8 @@ public sealed class HouseholdHost
     private readonly float[] _state = new float[HouseholdControlTask.FeaturesPerHousehold];
     private readonly float[] _action = new float[1], _cost = new float[1];
     private long _step;
+    private bool _admitted;
+    private HouseholdMessage? _join;
 
     /// <summary>Derives the household's own data.</summary>
     /// <param name="run">The run.</param>
@@ -65,6 +67,25 @@ public sealed class HouseholdHost
     /// <param name="tlsFolder">Folder holding <c>ca.crt</c> and this household's <c>&lt;id&gt;.pfx</c> for mutual TLS (an https address), or null for plain text.</param>
     public async Task RunAsync(Uri address, CancellationToken cancel, string? tlsFolder = null)
     {
+        // A connection that fails before admission (coordinator not up yet, TLS handshake lost on a busy machine) is
+        // retried: nothing of this household reached the coordinator's state machine.
+        for (int attempt = 1; ; attempt++)
+        {
+            try
+            {
+                await RunOnceAsync(address, cancel, tlsFolder);
+                return;
+            }
+            catch (RpcException e) when (e.StatusCode == StatusCode.Unavailable && !_admitted && attempt < 10)
+            {
+                _log.LogWarning("household '{Id}': connection failed before admission ({Detail}); retry {Attempt}", _id, e.Status.Detail, attempt);
+                await Task.Delay(TimeSpan.FromMilliseconds(250 * attempt), cancel);
+            }
+        }
+    }
+
+    private async Task RunOnceAsync(Uri address, CancellationToken cancel, string? tlsFolder)
+    {
         ArgumentNullException.ThrowIfNull(address);
         using var handler = new SocketsHttpHandler { EnableMultipleHttp2Connections = false };
         if (tlsFolder is not null)
@@ -86,12 +107,14 @@ public sealed class HouseholdHost
         var client = new FederationHost.FederationHostClient(channel);
         using AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call = client.Session(cancellationToken: cancel);
         IClientStreamWriter<HouseholdMessage> send = call.RequestStream;
-        await send.WriteAsync(_agent.Join(), cancel);
+        _join ??= _agent.Join().Clone(); // the agent joins once; a retried connection resends the same request
+        await send.WriteAsync(_join, cancel);
         _world.Reset(_run.CreateRunOptions().Federation.Learning.Seed);
         int stepsPerRound = _run.StepsPerRound;
         bool done = false;
         await foreach (CoordinatorMessage message in call.ResponseStream.ReadAllAsync(cancel))
         {
+            _admitted = true;
             HouseholdMessage? reply = _agent.Receive(message);
             if (reply is not null)
             {

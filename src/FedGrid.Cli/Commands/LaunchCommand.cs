@@ -24,7 +24,16 @@ internal static class LaunchCommand
         cmd.SetAction(async (parse, cancel) =>
         {
             HostedRunSettings run = read(parse);
-            LaunchReport r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel, parse.GetValue(insecure));
+            LaunchReport r;
+            try
+            {
+                r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel, parse.GetValue(insecure));
+            }
+            catch (Exception e) when (e is InvalidOperationException or TimeoutException)
+            {
+                Console.Error.WriteLine($"fedgrid: launch failed: {e.Message} (every process was stopped)");
+                return CliRunner.ExitFailure;
+            }
             Console.Out.Write(parse.GetValue(json) ? ToJson(r) : ToSummary(r));
             return r.MatchesInProcess ? CliRunner.ExitOk : CliRunner.ExitFailure;
         });
