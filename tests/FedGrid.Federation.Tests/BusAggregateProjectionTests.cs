@@ -1,7 +1,9 @@
+using FedGrid.Federation.Households;
 using FedGrid.Federation.Privacy;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Schemes;
+using FedGrid.Federation.Training;
 using FedGrid.Federation.Transcripts;
 using FedGrid.Federation.Wire;
 using FedGrid.Grid.Feeders;
@@ -201,5 +203,35 @@ public sealed class BusAggregateProjectionTests
         Assert.Equal(8 * sc.Households.Length, sink.Records.Count(r => r.Kind() == RecordKind.BusShares));
         Assert.Equal(sc.Households.Length, sink.Records.Count(r => r.Kind() == RecordKind.BusPeers));
         Assert.Equal(2, run.Coordinator.AggregatedRounds);
+    }
+
+    [Fact]
+    public void Household_decision_step_with_masked_bus_shares_allocates_nothing_after_warm_up()
+    {
+        var run = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions
+        {
+            Scheme = ClearScheme.Plain(), Federation = TestRuns.Options(), ProjectionForm = new BusAggregateProjectionInputs(),
+        }, new RecordingTranscript());
+        run.Start(); // admission, bus peers and key agreement
+        HouseholdAgent agent = run.Households[3];
+        var reply = new CoordinatorMessage { HouseholdIndex = 3, Sums = new SumsReply { Kind = SumsKind.Others } };
+        reply.Sums.Actor.AddRange(new float[run.Coordinator.ActorShape.FirstLayerSize]);
+        reply.Sums.Critic.AddRange(new float[run.Coordinator.CriticShape.FirstLayerSize]);
+        var correction = new CoordinatorMessage { HouseholdIndex = 3, BusCorrection = new BusCorrection { Fraction = -0.25 } };
+        float[] x = new float[HouseholdControlTask.FeaturesPerHousehold];
+        void OneStep(long step)
+        {
+            agent.BeginStep(step, x, 0, 1, 0.4);
+            reply.Sums.Step = step;
+            agent.Receive(reply);
+            correction.BusCorrection.Step = step;
+            agent.Receive(correction);
+            agent.CompleteStep(0.1);
+        }
+        for (long s = 0; s < 10; s++) OneStep(s);
+        long before = GC.GetAllocatedBytesForCurrentThread();
+        for (long s = 10; s < 90; s++) OneStep(s);
+        long allocated = GC.GetAllocatedBytesForCurrentThread() - before;
+        Assert.Equal(0, allocated);
     }
 }
