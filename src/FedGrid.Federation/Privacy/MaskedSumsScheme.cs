@@ -30,11 +30,17 @@ public sealed class MaskedSumsScheme : IFederationScheme
     /// <summary>Scheme name written in messages, transcripts and summaries.</summary>
     public const string SchemeName = "masked-sums";
 
-    /// <summary>Fractional bits of the fixed-point encoding (resolution 2^-32 ≈ 2.3e-10).</summary>
-    public const int FractionalBits = 32;
+    /// <summary>Bound on |partial sum| (2^10); a larger partial sum stops the run with an overflow error naming it.</summary>
+    public const double MaxAbsValue = 1024;
 
-    /// <summary>Bound on |partial sum| (2^16); with 32 fractional bits the ring holds totals of up to 2^14 households.</summary>
-    public const double MaxAbsValue = 65536;
+    /// <summary>
+    /// Fractional bits for <paramref name="households"/> households: as many as the ring allows,
+    /// 62 − ⌈log2 M⌉ − 10 (at most 52), so that M · (2^10 · 2^f + 1) &lt; 2^63; 47 bits (resolution 7e-15) for 32 households.
+    /// </summary>
+    /// <param name="households">M.</param>
+    /// <returns>f.</returns>
+    public static int FractionalBits(int households) =>
+        Math.Min(52, 62 - (int)Math.Ceiling(Math.Log2(households)) - 10);
 
     private const int ActorChannel = 0, CriticChannel = 1;
 
@@ -82,7 +88,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         return new CoordinatorSide(this, _inner.CreateCoordinatorSide(householdCount, actorSums, criticSums), householdCount, actorSums, criticSums);
     }
 
-    private static FixedPointEncoding Encoding(int households) => new(MaxAbsValue, households, FractionalBits);
+    private static FixedPointEncoding Encoding(int households) => new(MaxAbsValue, households, FractionalBits(households));
 
     private void Publish(int household, byte[] publicKey)
     {
