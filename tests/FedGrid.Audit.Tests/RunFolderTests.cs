@@ -25,7 +25,9 @@ public sealed class RunFolderTests
         };
         var run = new InProcessFederation(scenario, new FederatedRunOptions
         {
-            Scheme = ClearScheme.FromName(scheme), Federation = fed, ProjectionForm = projectionForm,
+            Scheme = scheme == FedGrid.Federation.Privacy.MaskedSumsScheme.SchemeName
+                ? new FedGrid.Federation.Privacy.MaskedSumsScheme(ClearScheme.Plain()) : ClearScheme.FromName(scheme),
+            Federation = fed, ProjectionForm = projectionForm,
             TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         });
         run.Run();
@@ -100,6 +102,19 @@ public sealed class RunFolderTests
         AuditRun with = RunFolderReader.Load(dir, substationMeter: true);
         ScoreCard c1 = Scorer.Score(with.View, Auditor.Attack(with.View), with.Truth!);
         Assert.Contains(c1.Summaries, s => s.Attack == SubspaceAttack.MeterCalibrationName);
+    }
+
+    [Fact]
+    public void Masked_sums_run_leaves_the_partial_sums_attack_no_better_than_the_prior()
+    {
+        // Issue 7 goal: under masked-sums the partial-sum attack's exposureRatio is at least 0.95.
+        string dir = Train(FedGrid.Federation.Privacy.MaskedSumsScheme.SchemeName, 1);
+        AuditRun run = RunFolderReader.Load(dir);
+        Assert.All(run.View.Households, h => Assert.All(h.PartialSums!, v => Assert.True(float.IsNaN(v))));
+        ScoreCard card = Scorer.Score(run.View, Auditor.Attack(run.View), run.Truth!);
+        ChannelSummary[] ps = [.. card.Summaries.Where(s => s.Channel == Channel.PartialSums)];
+        Assert.NotEmpty(ps);
+        Assert.All(ps, s => Assert.True(s.ExposureRatio >= 0.95, $"{s.Attack} {s.Quantity}: {s.ExposureRatio}"));
     }
 
     [Fact]

@@ -248,7 +248,14 @@ public static class RunFolderReader
                     {
                         int m = r.Received.HouseholdIndex;
                         PartialSums ps = r.Received.PartialSums;
-                        if (m < 0 || m >= M || ps.Actor.Count != ha) break;
+                        if (m < 0 || m >= M) break;
+                        if (ps.Actor.Count != ha)
+                        {
+                            // Scheme masked-sums: the coordinator holds only masked ring words, no usable partial sums;
+                            // the step counts, its row stays unobserved (the attacks fall back to the prior there).
+                            if (ps.MaskedActor.Count == ha) maxStep = Math.Max(maxStep, ps.Step);
+                            break;
+                        }
                         long step = ps.Step;
                         maxStep = Math.Max(maxStep, step);
                         while (sums[m].Count <= step) sums[m].Add(null!);

@@ -1,4 +1,5 @@
 using System.CommandLine;
+using FedGrid.Federation.Privacy;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Schemes;
@@ -30,7 +31,7 @@ internal static class TrainFederated
 
     public static (Option[] Options, Func<ParseResult, FederatedTrainOptions> Read) CreateOptions()
     {
-        var scheme = new Option<string?>("--scheme") { Description = $"federated mode: {ClearScheme.PlainName} (default) or {ClearScheme.PrivateColumnsName}" };
+        var scheme = new Option<string?>("--scheme") { Description = $"federated mode: {ClearScheme.PlainName} (default), {ClearScheme.PrivateColumnsName} or {MaskedSumsScheme.SchemeName} (partial sums masked, the coordinator learns only their total)" };
         var participation = new Option<double?>("--participation") { Description = "federated mode: fraction of households called to train each round, in (0, 1] (default 1)" };
         var quorum = new Option<int?>("--min-quorum") { Description = "federated mode: fewest uploads with which a round is aggregated (default 1)" };
         var round = new Option<int?>("--steps-per-round") { Description = $"federated mode: decision steps per round (default {SlotCalendar.SlotsPerDay}, one day)" };
@@ -56,8 +57,8 @@ internal static class TrainFederated
         }
         if (options.Learner != "actor-critic")
             throw new UserInputException($"--learner: the federated mode trains the actor-critic only (got '{options.Learner}')");
-        if (f.Scheme is not null and not ClearScheme.PlainName and not ClearScheme.PrivateColumnsName)
-            throw new UserInputException($"--scheme: unknown scheme '{f.Scheme}'; use {ClearScheme.PlainName} or {ClearScheme.PrivateColumnsName}");
+        if (f.Scheme is not null and not ClearScheme.PlainName and not ClearScheme.PrivateColumnsName and not MaskedSumsScheme.SchemeName)
+            throw new UserInputException($"--scheme: unknown scheme '{f.Scheme}'; use {ClearScheme.PlainName}, {ClearScheme.PrivateColumnsName} or {MaskedSumsScheme.SchemeName}");
         if (f.NoiseMultiplier is not null)
             throw new UserInputException($"a noise multiplier needs a scheme of the train verb that takes one; '{f.Scheme ?? ClearScheme.PlainName}' does not");
         if (f.Participation is { } p && !(p > 0 && p <= 1))
@@ -78,7 +79,9 @@ internal static class TrainFederated
             throw new UserInputException($"--min-quorum {q} exceeds the scenario's {households} households");
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         var (noControl, oracle) = TrainCommand.Baselines(c);
-        IFederationScheme scheme = ClearScheme.FromName(f.Scheme ?? ClearScheme.PlainName);
+        IFederationScheme scheme = f.Scheme == MaskedSumsScheme.SchemeName
+            ? new MaskedSumsScheme(ClearScheme.Plain()) // plain's uploads: the same model as plain up to fixed-point rounding
+            : ClearScheme.FromName(f.Scheme ?? ClearScheme.PlainName);
         var fed = new FederationOptions
         {
             // The centralized actor-critic's settings and seed: the same budget and starting point.
