@@ -126,6 +126,55 @@ public sealed class ActorCriticTests(Xunit.Abstractions.ITestOutputHelper log)
     }
 
     [Fact]
+    public void ClippedMultiEpochUpdatesWithGaeLearnToTrack()
+    {
+        var task = new TrackingTask(agents: 3);
+        var learner = new ActorCriticLearner(3, 2, 1, Options with
+        {
+            RolloutSteps = 8, GaeLambda = 0.95, UpdateEpochs = 4, ClipRatio = 0.2, NormaliseAdvantages = true,
+        });
+        double before = Evaluate(learner, task);
+        learner.Train(task, episodes: 400, seed: 1);
+        double after = Evaluate(learner, task);
+        log.WriteLine($"tracking (clipped, 4 epochs, GAE 0.95): cost per step {before:F4} untrained, {after:F4} after 400 episodes");
+        Assert.True(after < 0.05 * before, $"cost per step {before:F4} before training, {after:F4} after");
+    }
+
+    [Fact]
+    public void OneStepGaeIsTheTdErrorAndOnePassOfTheClippedObjectiveIsThePlainGradient()
+    {
+        // GAE(λ) over a one-step rollout is the TD error whatever λ (Schulman et al. 2016, eq. 11-16); on its first pass
+        // the clipped surrogate has ratio 1, so its gradient is the plain policy gradient (Schulman et al. 2017, §3).
+        var task = new TrackingTask(agents: 2);
+        ActorCriticLearner Trained(ActorCriticOptions o)
+        {
+            var l = new ActorCriticLearner(2, 2, 1, o);
+            l.Train(task, episodes: 5, seed: 3);
+            return l;
+        }
+        ActorCriticLearner plain = Trained(Options with { RolloutSteps = 1 });
+        ActorCriticLearner td = Trained(Options with { RolloutSteps = 1, GaeLambda = 0 });
+        ActorCriticLearner clipped = Trained(Options with { RolloutSteps = 1, ClipRatio = 0.2 });
+        ActorCriticLearner twoPass = Trained(Options with { RolloutSteps = 1, ClipRatio = 0.2, UpdateEpochs = 2 });
+        for (int i = 0; i < plain.Actor.ParameterCount; i++)
+        {
+            Assert.Equal(plain.Actor.Parameters[i], td.Actor.Parameters[i], 1e-4f);
+            Assert.Equal(plain.Actor.Parameters[i], clipped.Actor.Parameters[i], 1e-4f);
+        }
+        double differs = 0;
+        for (int i = 0; i < plain.Actor.ParameterCount; i++) differs = Math.Max(differs, Math.Abs(plain.Actor.Parameters[i] - twoPass.Actor.Parameters[i]));
+        Assert.True(differs > 1e-4, "a second pass must move the parameters further");
+    }
+
+    [Fact]
+    public void PpoSettingsOutsideTheirRangesAreRejected()
+    {
+        Assert.Throws<ArgumentOutOfRangeException>(() => new ActorCriticLearner(2, 2, 1, Options with { GaeLambda = 1.5 }));
+        Assert.Throws<ArgumentOutOfRangeException>(() => new ActorCriticLearner(2, 2, 1, Options with { UpdateEpochs = 0 }));
+        Assert.Throws<ArgumentOutOfRangeException>(() => new ActorCriticLearner(2, 2, 1, Options with { ClipRatio = 1 }));
+    }
+
+    [Fact]
     public void RecordWithoutActAndMismatchedTasksAreRejected()
     {
         var learner = new ActorCriticLearner(2, 2, 1, Options);

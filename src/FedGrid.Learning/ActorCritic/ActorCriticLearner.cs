@@ -39,6 +39,11 @@ public sealed class ActorCriticLearner
     private readonly float[] _rolloutCosts;
     private readonly float[] _rolloutLower;
     private readonly float[] _rolloutUpper;
+    private readonly float[] _rolloutValues;
+    private readonly float[] _rolloutAdvantages;
+    private readonly float[] _rolloutTargets;
+    private readonly float[] _rolloutOldLogProb;
+    private readonly float[] _coefficients;
     private readonly float[] _bootstrapState;
     private readonly float[] _pendingState;
     private readonly float[] _pendingPreSquash;
@@ -90,6 +95,11 @@ public sealed class ActorCriticLearner
         _rolloutCosts = new float[t * m];
         _rolloutLower = new float[t * m * k];
         _rolloutUpper = new float[t * m * k];
+        _rolloutValues = new float[t * m];
+        _rolloutAdvantages = new float[t * m];
+        _rolloutTargets = new float[t * m];
+        _rolloutOldLogProb = new float[t * m];
+        _coefficients = new float[m];
         _bootstrapState = new float[s];
         _pendingState = new float[s];
         _pendingPreSquash = new float[m * k];
@@ -345,36 +355,122 @@ public sealed class ActorCriticLearner
         {
             Critic.Forward(_bootstrapState, _criticWorkspace, _returns);
         }
-        Array.Clear(_actorGradient);
-        Array.Clear(_criticGradient);
-        float weight = 1f / t;
         float gamma = (float)_options.Gamma;
+        float lambda = (float)_options.GaeLambda;
+        bool ratioTerms = _options.UpdateEpochs > 1 || _options.ClipRatio > 0;
+        // Advantages and critic targets with the networks as they acted (no update happens inside a rollout).
+        // λ = 1 keeps the plain n-step return R_i = c_i + γR_{i+1}, advantage R_i − V_i.
+        Span<float> nextValue = _advantages; // V(s_{i+1}) per agent while walking back (λ < 1 only)
+        if (lambda < 1f)
+        {
+            _returns.AsSpan().CopyTo(nextValue);
+            Array.Clear(_returns); // running GAE per agent
+        }
         for (int i = t - 1; i >= 0; i--)
         {
-            for (int h = 0; h < m; h++)
-            {
-                _returns[h] = _rolloutCosts[i * m + h] + gamma * _returns[h];
-            }
             ReadOnlySpan<float> state = _rolloutStates.AsSpan(i * s, s);
-            Critic.Forward(state, _criticWorkspace, _values);
+            Span<float> values = _rolloutValues.AsSpan(i * m, m);
+            Critic.Forward(state, _criticWorkspace, values);
             for (int h = 0; h < m; h++)
             {
-                _advantages[h] = _returns[h] - _values[h];
+                float cost = _rolloutCosts[i * m + h];
+                if (lambda < 1f)
+                {
+                    float delta = cost + gamma * nextValue[h] - values[h];
+                    _returns[h] = delta + gamma * lambda * _returns[h];
+                    _rolloutAdvantages[i * m + h] = _returns[h];
+                    _rolloutTargets[i * m + h] = _returns[h] + values[h];
+                    nextValue[h] = values[h];
+                }
+                else
+                {
+                    _returns[h] = cost + gamma * _returns[h];
+                    _rolloutAdvantages[i * m + h] = _returns[h] - values[h];
+                    _rolloutTargets[i * m + h] = _returns[h];
+                }
             }
-            ActorCriticLoss.Critic(_values, _returns, weight, _valueGradient);
-            Critic.Backward(_criticWorkspace, _valueGradient, _criticGradient);
-
-            Actor.Forward(state, _actorWorkspace, _actorOutput);
-            ActorCriticLoss.Actor(_actorOutput, _rolloutPreSquash.AsSpan(i * a, a), _advantages,
-                _rolloutLower.AsSpan(i * a, a), _rolloutUpper.AsSpan(i * a, a), ActionSizePerAgent,
-                _options.EntropyCoefficient, _options.LogStdMin, _options.LogStdMax, weight, _actorOutputGradient);
-            Actor.Backward(_actorWorkspace, _actorOutputGradient, _actorGradient);
+            if (ratioTerms)
+            {
+                Actor.Forward(state, _actorWorkspace, _actorOutput);
+                HeadLogProbs(_actorOutput, i, _rolloutOldLogProb.AsSpan(i * m, m));
+            }
         }
-        LastCriticGradientNorm = GradientClipping.ClipGlobalNorm(_criticGradient, _options.MaxGradientNorm);
-        LastActorGradientNorm = GradientClipping.ClipGlobalNorm(_actorGradient, _options.MaxGradientNorm);
-        _criticOptimiser.Step(Critic.Parameters, _criticGradient);
-        _actorOptimiser.Step(Actor.Parameters, _actorGradient);
+        if (_options.NormaliseAdvantages && t * m > 1)
+        {
+            Span<float> adv = _rolloutAdvantages.AsSpan(0, t * m);
+            double sum = 0, sq = 0;
+            foreach (float v in adv) sum += v;
+            double mean = sum / adv.Length;
+            foreach (float v in adv) sq += (v - mean) * (v - mean);
+            float std = (float)Math.Sqrt(sq / adv.Length) + 1e-6f;
+            for (int j = 0; j < adv.Length; j++) adv[j] = (float)((adv[j] - mean) / std);
+        }
+        float weight = 1f / t;
+        float clip = (float)_options.ClipRatio;
+        for (int epoch = 0; epoch < _options.UpdateEpochs; epoch++)
+        {
+            Array.Clear(_actorGradient);
+            Array.Clear(_criticGradient);
+            for (int i = t - 1; i >= 0; i--)
+            {
+                ReadOnlySpan<float> state = _rolloutStates.AsSpan(i * s, s);
+                Critic.Forward(state, _criticWorkspace, _values);
+                ActorCriticLoss.Critic(_values, _rolloutTargets.AsSpan(i * m, m), weight, _valueGradient);
+                Critic.Backward(_criticWorkspace, _valueGradient, _criticGradient);
+
+                Actor.Forward(state, _actorWorkspace, _actorOutput);
+                ReadOnlySpan<float> advantages = _rolloutAdvantages.AsSpan(i * m, m);
+                if (ratioTerms)
+                {
+                    HeadLogProbs(_actorOutput, i, _coefficients);
+                    for (int h = 0; h < m; h++)
+                    {
+                        // The log-ratio is capped at ln 3 (dual clip, Ye et al. 2020): a far-off stored action under a
+                        // narrow σ would otherwise overflow the ratio.
+                        float ratio = MathF.Exp(Math.Clamp(_coefficients[h] - _rolloutOldLogProb[i * m + h], -20f, DualClipLogRatio));
+                        float adv = advantages[h];
+                        // Cost advantage (minimised): the clipped objective is max(r·A, clip(r)·A); its gradient is
+                        // r·A·∇log π while the unclipped term is the larger one, else 0 (a cheaper-than-expected action,
+                        // A < 0, stops being pushed up once r > 1 + ε; a dearer one, A > 0, once r < 1 − ε).
+                        bool clipped = clip > 0 && ((adv < 0 && ratio > 1f + clip) || (adv > 0 && ratio < 1f - clip));
+                        _coefficients[h] = clipped ? 0f : ratio * adv;
+                    }
+                    advantages = _coefficients;
+                }
+                ActorCriticLoss.Actor(_actorOutput, _rolloutPreSquash.AsSpan(i * a, a), advantages,
+                    _rolloutLower.AsSpan(i * a, a), _rolloutUpper.AsSpan(i * a, a), ActionSizePerAgent,
+                    _options.EntropyCoefficient, _options.LogStdMin, _options.LogStdMax, weight, _actorOutputGradient);
+                Actor.Backward(_actorWorkspace, _actorOutputGradient, _actorGradient);
+            }
+            LastCriticGradientNorm = GradientClipping.ClipGlobalNorm(_criticGradient, _options.MaxGradientNorm);
+            LastActorGradientNorm = GradientClipping.ClipGlobalNorm(_actorGradient, _options.MaxGradientNorm);
+            _criticOptimiser.Step(Critic.Parameters, _criticGradient);
+            _actorOptimiser.Step(Actor.Parameters, _actorGradient);
+        }
         _rolloutLength = 0;
         UpdateCount++;
+    }
+
+    private static readonly float DualClipLogRatio = MathF.Log(3f);
+
+    /// <summary>
+    /// Joint pre-squash Gaussian log-density (up to the constant and the squash's Jacobian, which cancel in the
+    /// ratio) of row <paramref name="row"/>'s stored actions under each head of <paramref name="output"/>.
+    /// </summary>
+    private void HeadLogProbs(ReadOnlySpan<float> output, int row, Span<float> logProbs)
+    {
+        int k = ActionSizePerAgent, a = AgentCount * k;
+        for (int h = 0; h < AgentCount; h++)
+        {
+            double sum = 0;
+            for (int j = 0; j < k; j++)
+            {
+                int idx = row * a + h * k + j;
+                float logStd = SquashedGaussian.LogStd(output[2 * k * h + k + j], _options.LogStdMin, _options.LogStdMax);
+                double z = (_rolloutPreSquash[idx] - output[2 * k * h + j]) * Math.Exp(-logStd);
+                sum += -0.5 * z * z - logStd;
+            }
+            logProbs[h] = (float)sum;
+        }
     }
 }

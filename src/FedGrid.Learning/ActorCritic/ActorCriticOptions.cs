@@ -41,6 +41,27 @@ public sealed record ActorCriticOptions
     /// <summary>Factor on the output layers' initial weights (small: the policy starts near the middle of its box).</summary>
     public float InitialOutputScale { get; init; } = 0.1f;
 
+    /// <summary>
+    /// λ of the generalised advantage estimate over a rollout (1 = the n-step return minus the critic's value, the
+    /// plain A2C advantage; 0 = the one-step TD error). The critic's target is advantage + value.
+    /// </summary>
+    public double GaeLambda { get; init; } = 1.0;
+
+    /// <summary>
+    /// Passes over each rollout per update (1 = plain A2C). With more than one, later passes weight each head's
+    /// log-probability gradient by the probability ratio new/old policy of the stored action.
+    /// </summary>
+    public int UpdateEpochs { get; init; } = 1;
+
+    /// <summary>
+    /// ε of the clipped surrogate objective (PPO-style): a head's term stops contributing once its ratio leaves
+    /// [1 − ε, 1 + ε] in the direction that the advantage favours; 0 = no clipping.
+    /// </summary>
+    public double ClipRatio { get; init; }
+
+    /// <summary>Normalise each rollout's advantages (all rows and agents) to mean 0, standard deviation 1 before the actor's update.</summary>
+    public bool NormaliseAdvantages { get; init; }
+
     /// <summary>Seed of the initial weights and of the exploration noise.</summary>
     public ulong Seed { get; init; } = 1;
 
@@ -65,6 +86,18 @@ public sealed record ActorCriticOptions
         if (RolloutSteps < 1)
         {
             throw new ArgumentOutOfRangeException(nameof(RolloutSteps), "At least one step per update.");
+        }
+        if (GaeLambda is < 0 or > 1)
+        {
+            throw new ArgumentOutOfRangeException(nameof(GaeLambda), "λ must lie in [0, 1].");
+        }
+        if (UpdateEpochs < 1)
+        {
+            throw new ArgumentOutOfRangeException(nameof(UpdateEpochs), "At least one pass per update.");
+        }
+        if (ClipRatio is < 0 or >= 1)
+        {
+            throw new ArgumentOutOfRangeException(nameof(ClipRatio), "The clip ratio must lie in [0, 1).");
         }
         if (MaxGradientNorm <= 0 || CostScale <= 0)
         {
