@@ -42,7 +42,7 @@ public class TrainFederatedTests
             Assert.Equal("private-columns", reader.Header.Scheme);
             Assert.Equal(reader.Records().LongCount(), root.GetProperty("transcriptRecords").GetInt64());
             Assert.True(reader.Completed);
-            Assert.Contains("train: federated private-columns: day 1/1", err);
+            Assert.Contains("train: federated private-columns (household projection inputs): day 1/1", err);
         }
         finally { Directory.Delete(dir, true); }
     }

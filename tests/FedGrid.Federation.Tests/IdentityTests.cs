@@ -1,3 +1,4 @@
+using FedGrid.Federation.Households;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Schemes;
@@ -58,6 +59,23 @@ public sealed class IdentityTests
             actor.PartialSums(m, state.AsSpan(m * features, features), a);
             Assert.Equal(a, r.Received.PartialSums.Actor.ToArray());
         }
+    }
+
+    [Fact]
+    public void LocalTrainingRefusesActorCriticOptionsItDoesNotImplement()
+    {
+        // The household's local update is the plain advantage actor-critic; the PPO-style options of the
+        // centralized learner must be refused, not silently ignored, or the two trainers drift apart.
+        var run = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions { Scheme = ClearScheme.Plain(), Federation = TestRuns.Options() }, new RecordingTranscript());
+        run.Start();
+        var learning = TestRuns.Options().Learning;
+        LocalTrainer Make(ActorCriticOptions o) =>
+            new(0, Copy(run.Coordinator.Actor), Copy(run.Coordinator.Critic), o, new LocalTrainingOptions());
+        Assert.NotNull(Make(learning));
+        Assert.Throws<NotSupportedException>(() => Make(learning with { UpdateEpochs = 2 }));
+        Assert.Throws<NotSupportedException>(() => Make(learning with { ClipRatio = 0.2 }));
+        Assert.Throws<NotSupportedException>(() => Make(learning with { GaeLambda = 0.95 }));
+        Assert.Throws<NotSupportedException>(() => Make(learning with { NormaliseAdvantages = true }));
     }
 
     [Fact]

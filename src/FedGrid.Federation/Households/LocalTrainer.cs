@@ -108,6 +108,9 @@ public sealed class LocalTrainer
 
     internal LocalTrainer(int household, DenseNetwork actor, DenseNetwork critic, ActorCriticOptions learning, LocalTrainingOptions local)
     {
+        if (learning.GaeLambda != 1.0 || learning.UpdateEpochs != 1 || learning.ClipRatio != 0 || learning.NormaliseAdvantages)
+            throw new NotSupportedException(
+                "Local training on a household implements the plain advantage actor-critic update only; GaeLambda, UpdateEpochs, ClipRatio and NormaliseAdvantages must keep their defaults in a federated run.");
         _m = household;
         _learning = learning;
         _local = local;
