@@ -43,7 +43,7 @@ public class AuditBenchmarks
         string dir = Directory.CreateTempSubdirectory($"fedgrid-bench-audit-{scheme}-").FullName;
         var run = new InProcessFederation(DefaultScenario.Create(DefaultScenario.DefaultSeed, Days), new FederatedRunOptions
         {
-            Scheme = ClearScheme.FromName(scheme), Federation = new FederationOptions { Learning = TrainingDefaults.ActorCritic },
+            Scheme = FederationSchemes.FromName(scheme), Federation = new FederationOptions { Learning = TrainingDefaults.ActorCritic },
             TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         });
         run.Run();

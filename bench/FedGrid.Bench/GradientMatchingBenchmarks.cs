@@ -43,7 +43,7 @@ public class GradientMatchingBenchmarks
         string dir = Directory.CreateTempSubdirectory("fedgrid-bench-gm-").FullName;
         new InProcessFederation(DefaultScenario.Create(DefaultScenario.DefaultSeed, Days), new FederatedRunOptions
         {
-            Scheme = ClearScheme.FromName(ClearScheme.PlainName), Federation = new FederationOptions { Learning = TrainingDefaults.ActorCritic },
+            Scheme = FederationSchemes.FromName(ClearScheme.PlainName), Federation = new FederationOptions { Learning = TrainingDefaults.ActorCritic },
             TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         }).Run();
         return dir;

@@ -25,8 +25,7 @@ public sealed class RunFolderTests
         };
         var run = new InProcessFederation(scenario, new FederatedRunOptions
         {
-            Scheme = scheme == FedGrid.Federation.Privacy.MaskedSumsScheme.SchemeName
-                ? new FedGrid.Federation.Privacy.MaskedSumsScheme(ClearScheme.Plain()) : ClearScheme.FromName(scheme),
+            Scheme = FederationSchemes.FromName(scheme),
             Federation = fed, ProjectionForm = projectionForm,
             TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         });

@@ -218,20 +218,6 @@ public sealed class BusAggregateProjectionTests
         reply.Sums.Actor.AddRange(new float[run.Coordinator.ActorShape.FirstLayerSize]);
         reply.Sums.Critic.AddRange(new float[run.Coordinator.CriticShape.FirstLayerSize]);
         var correction = new CoordinatorMessage { HouseholdIndex = 3, BusCorrection = new BusCorrection { Fraction = -0.25 } };
-        float[] x = new float[HouseholdControlTask.FeaturesPerHousehold];
-        void OneStep(long step)
-        {
-            agent.BeginStep(step, x, 0, 1, 0.4);
-            reply.Sums.Step = step;
-            agent.Receive(reply);
-            correction.BusCorrection.Step = step;
-            agent.Receive(correction);
-            agent.CompleteStep(0.1);
-        }
-        for (long s = 0; s < 10; s++) OneStep(s);
-        long before = GC.GetAllocatedBytesForCurrentThread();
-        for (long s = 10; s < 90; s++) OneStep(s);
-        long allocated = GC.GetAllocatedBytesForCurrentThread() - before;
-        Assert.Equal(0, allocated);
+        Assert.Equal(0, TestRuns.AllocatedByDecisionSteps(agent, reply, correction, step => correction.BusCorrection.Step = step));
     }
 }

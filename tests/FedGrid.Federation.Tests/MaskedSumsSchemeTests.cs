@@ -10,6 +10,16 @@ namespace FedGrid.Federation.Tests;
 public sealed class MaskedSumsSchemeTests
 {
     [Fact]
+    public void EverySchemeNameGivesItsScheme_AndUnknownNamesAreRefused()
+    {
+        foreach (string name in FederationSchemes.Names)
+            Assert.Equal(name, FederationSchemes.FromName(name).Name);
+        Assert.IsType<MaskedSumsScheme>(FederationSchemes.FromName(MaskedSumsScheme.SchemeName));
+        var e = Assert.Throws<ArgumentException>(() => FederationSchemes.FromName("masked"));
+        Assert.Contains("plain, private-columns or masked-sums", e.Message, StringComparison.Ordinal);
+    }
+
+    [Fact]
     public void SameSeedGivesThePlainModelUpToFixedPointRounding()
     {
         // Issue 7: "same seed gives the same model as plain up to fixed-point rounding (at most 1e-6 relative)".

@@ -191,21 +191,7 @@ public sealed class ProtocolTests
         reply.Sums.Actor.AddRange(new float[64]);
         reply.Sums.Critic.AddRange(new float[64]);
         var setpoint = new CoordinatorMessage { HouseholdIndex = 3, Setpoint = new FinalSetpoint { SetpointKw = 0.5 } };
-        float[] x = new float[HouseholdControlTask.FeaturesPerHousehold];
-        void OneStep(long step)
-        {
-            agent.BeginStep(step, x, 0, 1, 0.4);
-            reply.Sums.Step = step;
-            agent.Receive(reply);
-            setpoint.Setpoint.Step = step;
-            agent.Receive(setpoint);
-            agent.CompleteStep(0.1);
-        }
-        for (long s = 0; s < 10; s++) OneStep(s);
-        long before = GC.GetAllocatedBytesForCurrentThread();
-        for (long s = 10; s < 90; s++) OneStep(s);
-        long allocated = GC.GetAllocatedBytesForCurrentThread() - before;
-        Assert.Equal(0, allocated);
+        Assert.Equal(0, TestRuns.AllocatedByDecisionSteps(agent, reply, setpoint, step => setpoint.Setpoint.Step = step));
     }
 
     private sealed class ListOutbox : ICoordinatorOutbox

@@ -1,3 +1,4 @@
+using FedGrid.Federation.Households;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Schemes;
@@ -41,4 +42,29 @@ internal static class TestRuns
     };
 
     public static string TempDir(string name) => Directory.CreateTempSubdirectory("fedgrid-" + name).FullName;
+
+    /// <summary>Drives one household through decision steps by hand (the coordinator's sums reply, then its final
+    /// message for the step), 10 to warm up and 80 measured, and returns the bytes those 80 allocated.</summary>
+    /// <param name="agent">The household.</param>
+    /// <param name="reply">The sums reply, reused every step.</param>
+    /// <param name="final">The message that ends the step (setpoint or bus correction), reused every step.</param>
+    /// <param name="stampFinal">Sets <paramref name="final"/>'s step number.</param>
+    /// <returns>Bytes allocated on this thread by the measured steps.</returns>
+    public static long AllocatedByDecisionSteps(HouseholdAgent agent, CoordinatorMessage reply, CoordinatorMessage final, Action<long> stampFinal)
+    {
+        float[] x = new float[HouseholdControlTask.FeaturesPerHousehold];
+        void OneStep(long step)
+        {
+            agent.BeginStep(step, x, 0, 1, 0.4);
+            reply.Sums.Step = step;
+            agent.Receive(reply);
+            stampFinal(step);
+            agent.Receive(final);
+            agent.CompleteStep(0.1);
+        }
+        for (long s = 0; s < 10; s++) OneStep(s);
+        long before = GC.GetAllocatedBytesForCurrentThread();
+        for (long s = 10; s < 90; s++) OneStep(s);
+        return GC.GetAllocatedBytesForCurrentThread() - before;
+    }
 }

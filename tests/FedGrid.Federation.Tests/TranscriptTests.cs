@@ -14,7 +14,7 @@ public sealed class TranscriptTests
         string path = Path.Combine(dir, "transcript.fgt");
         var run = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions
         {
-            Scheme = ClearScheme.FromName(scheme), Federation = TestRuns.Options(stepsPerRound: stepsPerRound), TranscriptPath = path,
+            Scheme = FederationSchemes.FromName(scheme), Federation = TestRuns.Options(stepsPerRound: stepsPerRound), TranscriptPath = path,
             GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         });
         for (int i = 0; i < steps; i++) run.StepOnce();

@@ -57,8 +57,8 @@ internal static class TrainFederated
         }
         if (options.Learner != "actor-critic")
             throw new UserInputException($"--learner: the federated mode trains the actor-critic only (got '{options.Learner}')");
-        if (f.Scheme is not null and not ClearScheme.PlainName and not ClearScheme.PrivateColumnsName and not MaskedSumsScheme.SchemeName)
-            throw new UserInputException($"--scheme: unknown scheme '{f.Scheme}'; use {ClearScheme.PlainName}, {ClearScheme.PrivateColumnsName} or {MaskedSumsScheme.SchemeName}");
+        if (f.Scheme is not null && !FederationSchemes.Names.Contains(f.Scheme))
+            throw new UserInputException($"--scheme: unknown scheme '{f.Scheme}'; use {FederationSchemes.NameList()}");
         if (f.NoiseMultiplier is not null)
             throw new UserInputException($"a noise multiplier needs a scheme of the train verb that takes one; '{f.Scheme ?? ClearScheme.PlainName}' does not");
         if (f.Participation is { } p && !(p > 0 && p <= 1))
@@ -79,9 +79,7 @@ internal static class TrainFederated
             throw new UserInputException($"--min-quorum {q} exceeds the scenario's {households} households");
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         var (noControl, oracle) = TrainCommand.Baselines(c);
-        IFederationScheme scheme = f.Scheme == MaskedSumsScheme.SchemeName
-            ? new MaskedSumsScheme(ClearScheme.Plain()) // plain's uploads: the same model as plain up to fixed-point rounding
-            : ClearScheme.FromName(f.Scheme ?? ClearScheme.PlainName);
+        IFederationScheme scheme = FederationSchemes.FromName(f.Scheme ?? ClearScheme.PlainName);
         var fed = new FederationOptions
         {
             // The centralized actor-critic's settings and seed: the same budget and starting point.

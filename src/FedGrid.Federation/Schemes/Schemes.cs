@@ -1,3 +1,4 @@
+using FedGrid.Federation.Privacy;
 using FedGrid.Federation.Wire;
 
 namespace FedGrid.Federation.Schemes;
@@ -199,16 +200,6 @@ public sealed class ClearScheme : IFederationScheme
     /// <returns>The scheme.</returns>
     public static ClearScheme PrivateColumns(Func<IUploadAggregator>? aggregator = null) => new(PrivateColumnsName, false, aggregator);
 
-    /// <summary>The scheme of a name ("plain" or "private-columns").</summary>
-    /// <param name="name">The name.</param>
-    /// <returns>The scheme.</returns>
-    /// <exception cref="ArgumentException">Unknown name.</exception>
-    public static ClearScheme FromName(string name) => name switch
-    {
-        PlainName => Plain(),
-        PrivateColumnsName => PrivateColumns(),
-        _ => throw new ArgumentException($"unknown scheme '{name}'; known: {PlainName}, {PrivateColumnsName}", nameof(name)),
-    };
 
     /// <inheritdoc />
     public string Name { get; }
@@ -374,4 +365,28 @@ public sealed class ProtocolException : Exception
     public ProtocolException(string message) : base(message)
     {
     }
+}
+
+/// <summary>The schemes known by name: one lookup for the train verb, the sweep, the benches and the tests.</summary>
+public static class FederationSchemes
+{
+    /// <summary>Names of the schemes, in the order they are offered.</summary>
+    public static IReadOnlyList<string> Names { get; } = [ClearScheme.PlainName, ClearScheme.PrivateColumnsName, MaskedSumsScheme.SchemeName];
+
+    /// <summary>The scheme of a name.</summary>
+    /// <param name="name">One of <see cref="Names"/>.</param>
+    /// <returns>The scheme; <c>masked-sums</c> keeps plain's uploads and averaging, so it gives plain's model up to
+    /// fixed-point rounding.</returns>
+    /// <exception cref="ArgumentException">Unknown name.</exception>
+    public static IFederationScheme FromName(string name) => name switch
+    {
+        ClearScheme.PlainName => ClearScheme.Plain(),
+        ClearScheme.PrivateColumnsName => ClearScheme.PrivateColumns(),
+        MaskedSumsScheme.SchemeName => new MaskedSumsScheme(ClearScheme.Plain()),
+        _ => throw new ArgumentException($"unknown scheme '{name}'; use {NameList()}", nameof(name)),
+    };
+
+    /// <summary>The names as a phrase: "a, b or c".</summary>
+    /// <returns>The phrase.</returns>
+    public static string NameList() => string.Join(", ", Names.Take(Names.Count - 1)) + " or " + Names[^1];
 }
