@@ -32,6 +32,13 @@ public sealed class SweepCommandTests
         Assert.Equal(3, csv.Length);
         Assert.StartsWith("scheme,noiseMultiplier,epsilon,savingsCapturedPct,violationSlots,partialSumsExposureRatio,uploadsExposureRatio", csv[0]);
         Assert.Contains("| private-columns |", File.ReadAllText(Path.Combine(dir, "sweep.md")));
+        // Each run folder also gets the audit verb's files, so the most exposed household can be looked at.
+        foreach (string run in new[] { "plain", "private-columns" })
+        {
+            using JsonDocument audit = JsonDocument.Parse(File.ReadAllText(Path.Combine(dir, run, "audit.json")));
+            Assert.Equal(run, audit.RootElement.GetProperty("scheme").GetString());
+            Assert.Contains("<svg", File.ReadAllText(Path.Combine(dir, run, "exposure-report.html")));
+        }
         byte[] png = File.ReadAllBytes(Path.Combine(dir, "privacy-utility.png"));
         Assert.Equal(new byte[] { 0x89, 0x50, 0x4E, 0x47 }, png[..4]); // PNG signature (ISO/IEC 15948)
     }
@@ -45,5 +52,14 @@ public sealed class SweepCommandTests
         var e2 = Assert.Throws<UserInputException>(() => SweepCommand.Run("plain", "0.5,x", 1, dir, true, TextWriter.Null, TextWriter.Null));
         Assert.Contains("--noise: 'x'", e2.Message);
         Assert.False(Directory.Exists(Path.Combine(dir, "plain")));
+    }
+
+    [Fact]
+    public void Without_scheme_the_sweep_covers_every_scheme_of_the_train_verb()
+    {
+        System.CommandLine.Command sweep = Verbs.All().Single(c => c.Name == "sweep");
+        System.CommandLine.ParseResult parsed = sweep.Parse("--days 1");
+        Assert.Empty(parsed.Errors);
+        Assert.Equal(string.Join(",", FedGrid.Federation.Schemes.FederationSchemes.Names), parsed.GetValue<string>("--scheme"));
     }
 }

@@ -57,6 +57,16 @@ internal static class AuditCommand
         return new GradientMatchingOptions { Iterations = iterations, TotalVariationWeight = tv };
     }
 
+    /// <summary>Writes audit.json and, when asked, the offline report exposure-report.html into the run folder.</summary>
+    public static void WriteFiles(string runDir, AuditRun run, AttackResults results, ScoreCard? card, bool writeReport, TextWriter progress)
+    {
+        File.WriteAllText(Path.Combine(runDir, "audit.json"), AuditDocument.FullJson(run.Context, run.View, results, card));
+        if (!writeReport) return;
+        string path = Path.Combine(runDir, "exposure-report.html");
+        File.WriteAllText(path, AuditDocument.Html(run.Context, run.View, results, card));
+        progress.WriteLine($"audit: report {path}");
+    }
+
     /// <summary>Audits and prints; writes audit.json (and the report) into the run folder. Returns the exit code.</summary>
     public static int Run(string runDir, string? sideInfo, bool asJson, bool writeReport, TextWriter output, TextWriter progress, GradientMatchingOptions? gradientMatching = null)
     {
@@ -66,13 +76,7 @@ internal static class AuditCommand
                 throw new UserInputException($"--side-info: unknown '{n}'; use a comma-separated list of {string.Join(", ", SideInfoNames)}");
         bool priors = names.Contains("priors"), meter = names.Contains("substation-meter");
         (AuditRun run, AttackResults results, ScoreCard? card) = Audit(runDir, priors, meter, gradientMatching, progress);
-        File.WriteAllText(Path.Combine(runDir, "audit.json"), AuditDocument.FullJson(run.Context, run.View, results, card));
-        if (writeReport)
-        {
-            string path = Path.Combine(runDir, "exposure-report.html");
-            File.WriteAllText(path, AuditDocument.Html(run.Context, run.View, results, card));
-            progress.WriteLine($"audit: report {path}");
-        }
+        WriteFiles(runDir, run, results, card, writeReport, progress);
         if (asJson)
         {
             output.Write(AuditDocument.SummaryJson(run.Context, results, card));

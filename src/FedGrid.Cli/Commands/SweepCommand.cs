@@ -3,9 +3,12 @@ using System.Globalization;
 using System.Text;
 using System.Text.Json;
 using FedGrid.Audit;
+using FedGrid.Audit.Attacks;
+using FedGrid.Audit.Runs;
 using FedGrid.Audit.Scoring;
 using FedGrid.Charts;
 using FedGrid.Federation.Privacy;
+using FedGrid.Federation.Schemes;
 
 namespace FedGrid.Cli.Commands;
 
@@ -32,7 +35,11 @@ internal static class SweepCommand
 
     public static Command Create()
     {
-        var schemes = new Option<string>("--scheme") { Description = "comma-separated schemes, any the train verb's federated mode accepts", Required = true };
+        var schemes = new Option<string>("--scheme")
+        {
+            Description = $"comma-separated schemes, any the train verb's federated mode accepts (default: all of them, {string.Join(",", FederationSchemes.Names)})",
+            DefaultValueFactory = _ => string.Join(",", FederationSchemes.Names),
+        };
         var noise = new Option<string?>("--noise") { Description = $"comma-separated noise multipliers z, applied to the {DifferentiallyPrivateScheme.SchemeName} scheme (other schemes run once)" };
         var days = new Option<int>("--days") { Description = $"training days of every run (default {DefaultDays})", DefaultValueFactory = _ => DefaultDays };
         var outDir = new Option<string?>("--out") { Description = "sweep folder (default runs/sweep-<days>d); one run folder per combination inside" };
@@ -75,7 +82,8 @@ internal static class SweepCommand
             int code = TrainCommand.Run(o, captured, progress);
             if (code != CliRunner.ExitOk) return code;
             using JsonDocument summary = JsonDocument.Parse(captured.ToString());
-            (_, _, ScoreCard? card) = AuditCommand.Audit(o.OutDir!, priors: true, meter: false, gradientMatching: null, progress);
+            (AuditRun run, AttackResults results, ScoreCard? card) = AuditCommand.Audit(o.OutDir!, priors: true, meter: false, gradientMatching: null, progress);
+            AuditCommand.WriteFiles(o.OutDir!, run, results, card, writeReport: true, progress);
             rows.Add(new SweepRow(s, z, Number(summary.RootElement, "epsilon"), Number(summary.RootElement, "savingsCapturedPct"),
                 summary.RootElement.GetProperty("violationSlots").GetInt64(), LowestExposure(card, Channel.PartialSums), LowestExposure(card, Channel.Uploads), o.OutDir!));
         }
