@@ -29,6 +29,9 @@ public sealed record CoordinatorHostOptions
     /// <summary>Continue from the checkpoint in <see cref="StateFolder"/> when there is one (without it, an existing checkpoint is refused).</summary>
     public bool Resume { get; init; }
 
+    /// <summary>Fault injection for tests: after writing the checkpoint of this round the coordinator stops taking messages (as a process about to be killed); −1 for never.</summary>
+    public int HoldAfterCheckpointRound { get; init; } = -1;
+
     /// <summary>How long the run waits for a household that lost its connection to rejoin before it fails.</summary>
     public TimeSpan RejoinTimeout { get; init; } = TimeSpan.FromMinutes(5);
 
@@ -291,6 +294,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 if (_done.Task.IsCompleted)
                 {
                     break;
+                }
+                if (_checkpointRound == _options.HoldAfterCheckpointRound && _checkpointRound > 0)
+                {
+                    _log.LogWarning("holding after the checkpoint of round {Round} (fault injection)", _checkpointRound);
+                    await Task.Delay(Timeout.Infinite, cancel);
                 }
             }
         }

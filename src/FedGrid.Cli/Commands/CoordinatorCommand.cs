@@ -33,6 +33,8 @@ internal static class CoordinatorCommand
         cmd.Options.Add(state);
         cmd.Options.Add(resume);
         cmd.Options.Add(rejoin);
+        var hold = new Option<int>("--hold-after-checkpoint") { Description = "fault injection for tests: stop taking messages after the checkpoint of this round", DefaultValueFactory = _ => -1, Hidden = true };
+        cmd.Options.Add(hold);
         cmd.Options.Add(insecure);
         cmd.Options.Add(tls);
         cmd.SetAction(async (parse, cancel) =>
@@ -54,6 +56,7 @@ internal static class CoordinatorCommand
             {
                 Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript),
                 StateFolder = parse.GetValue(state), Resume = parse.GetValue(resume), RejoinTimeout = TimeSpan.FromSeconds(rejoinSeconds),
+                HoldAfterCheckpointRound = parse.GetValue(hold),
             };
             var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), tlsFolder: folder);
             CoordinatorOutcome outcome = await CoordinatorHost.RunAsync(app, p => Console.Out.WriteLine($"coordinator: listening on {ip}:{p}"), cancel);
