@@ -43,6 +43,7 @@ public sealed class HouseholdHost
     private HouseholdControlTask _world;
     private JoinAccepted? _accepted;
     private long _step;
+    private bool _everAdmitted;
 
     /// <summary>Derives the household's own data.</summary>
     /// <param name="run">The run.</param>
@@ -98,8 +99,10 @@ public sealed class HouseholdHost
     public async Task RunAsync(Uri address, CancellationToken cancel, string? tlsFolder = null)
     {
         ArgumentNullException.ThrowIfNull(address);
+        // A restarted household that holds checkpoints was admitted before: it reconnects like one.
+        _everAdmitted |= StateFolder is not null && Directory.Exists(StateFolder) && Directory.EnumerateFiles(StateFolder, _id + ".round-*.ckpt").Any();
         var sinceProgress = System.Diagnostics.Stopwatch.StartNew();
-        long progressMark = -1;
+        long progressMark = 0;
         for (int attempt = 1; ; attempt++)
         {
             try
@@ -107,7 +110,9 @@ public sealed class HouseholdHost
                 await RunOnceAsync(address, cancel, tlsFolder);
                 return;
             }
-            catch (Exception e) when (Retryable(e, cancel))
+            // Before the first admission only UNAVAILABLE is retried, 10 times (the coordinator not up yet, a handshake
+            // lost on a busy machine); a household that was admitted keeps reconnecting within the window.
+            catch (Exception e) when (Retryable(e, cancel, _everAdmitted) && (_everAdmitted || attempt < 10))
             {
                 if (_step != progressMark)
                 {
@@ -127,8 +132,10 @@ public sealed class HouseholdHost
         }
     }
 
-    private static bool Retryable(Exception e, CancellationToken cancel) => !cancel.IsCancellationRequested && e switch
+    private static bool Retryable(Exception e, CancellationToken cancel, bool admitted) => !cancel.IsCancellationRequested && e switch
     {
+        RpcException r when !admitted => r.StatusCode == StatusCode.Unavailable,
+        _ when !admitted => false,
         RpcException r => r.StatusCode is StatusCode.Unavailable or StatusCode.Internal or StatusCode.Unknown or StatusCode.AlreadyExists
             or StatusCode.Cancelled or StatusCode.Aborted or StatusCode.DeadlineExceeded,
         HttpRequestException or IOException => true,
@@ -191,6 +198,7 @@ public sealed class HouseholdHost
             {
                 case CoordinatorMessage.BodyOneofCase.Accepted:
                     _accepted = message.Accepted.Clone();
+                    _everAdmitted = true;
                     _log.LogInformation("household '{Id}' admitted as {Index} of {Count}", _id, message.Accepted.HouseholdIndex, message.Accepted.HouseholdCount);
                     break;
                 case CoordinatorMessage.BodyOneofCase.Model when _agent.Phase == HouseholdPhase.Ready:

@@ -53,6 +53,15 @@ internal sealed class HostProcess : IDisposable
         }
     }
 
+    /// <summary>The first line containing <paramref name="text"/>, or null.</summary>
+    public string? Line(string text)
+    {
+        lock (_lines)
+        {
+            return _lines.FirstOrDefault(l => l.Contains(text, StringComparison.Ordinal));
+        }
+    }
+
     public bool Logged(string text)
     {
         lock (_lines)
