@@ -90,7 +90,7 @@ public sealed class ResumeTests
         var all = new List<HostProcess>();
         try
         {
-            var coordinator = HostProcess.Start("coordinator", Coordinator(Small, folder, port, "--round-timeout", "8"));
+            var coordinator = HostProcess.Start("coordinator", Coordinator(Small, folder, port, "--round-timeout", "12"));
             all.Add(coordinator);
             await coordinator.WaitForLine("listening on", TimeSpan.FromSeconds(60));
             var ids = Small.CreateScenario().Households.Select(h => h.Id).ToList();
