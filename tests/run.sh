@@ -10,6 +10,7 @@ need=()
 /usr/bin/python3 -c "import cvxopt" 2>/dev/null || need+=(python3-cvxopt)
 [ -x /usr/bin/readelf ] || need+=(binutils)   # outside ELF reader for the TorchSharp build-fix tests
 [ -x /usr/bin/chromium ] || need+=(chromium)  # headless rendering check of the offline exposure report
+{ [ -x /usr/sbin/ip ] || [ -x /sbin/ip ] || [ -x /usr/bin/ip ]; } || need+=(iproute2)  # network-namespace test of the hosts (runs as root)
 if [ ${#need[@]} -gt 0 ]; then
   sudo_cmd=""
   [ "$(id -u)" -ne 0 ] && sudo_cmd="sudo"

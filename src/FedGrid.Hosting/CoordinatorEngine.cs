@@ -23,13 +23,28 @@ public sealed record CoordinatorHostOptions
     /// <summary>Transcript file to write, or null.</summary>
     public string? TranscriptPath { get; init; }
 
+    /// <summary>Run folder for the round-end checkpoint (<c>coordinator.ckpt</c>), or null for none.</summary>
+    public string? StateFolder { get; init; }
+
+    /// <summary>Continue from the checkpoint in <see cref="StateFolder"/> when there is one (without it, an existing checkpoint is refused).</summary>
+    public bool Resume { get; init; }
+
+    /// <summary>Fault injection for tests: after writing the checkpoint of this round the coordinator stops taking messages (as a process about to be killed); −1 for never.</summary>
+    public int HoldAfterCheckpointRound { get; init; } = -1;
+
+    /// <summary>How long the run waits for a household that lost its connection to rejoin before it fails.</summary>
+    public TimeSpan RejoinTimeout { get; init; } = TimeSpan.FromMinutes(5);
+
     /// <summary>Whether sessions come over mutual TLS: the client certificate must name the joining household (set by <see cref="CoordinatorHost.Build"/>).</summary>
     public bool ClientCertificates { get; init; }
 }
 
 /// <summary>One household's open session.</summary>
-internal sealed class HouseholdSession(int index, string id)
+internal sealed class HouseholdSession(int index, string id, bool rejoin = false)
 {
+    /// <summary>Whether the session joins a run already under way (after a lost connection or a coordinator restart).</summary>
+    public bool Rejoin { get; } = rejoin;
+
     public int Index { get; } = index;
 
     public string Id { get; } = id;
@@ -50,7 +65,12 @@ internal sealed class HouseholdSession(int index, string id)
 /// </summary>
 public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
 {
-    private readonly record struct Inbound(HouseholdSession? Session, HouseholdMessage? Message, bool Disconnected, int TimeoutRound);
+    private readonly record struct Inbound(HouseholdSession? Session, HouseholdMessage? Message, bool Disconnected, int TimeoutRound, int RejoinCheck = -1);
+
+    /// <summary>File name of the coordinator's checkpoint in its run folder.</summary>
+    public const string CheckpointFileName = "coordinator.ckpt";
+
+    private const string CheckpointKind = "coordinator";
 
     private readonly ILogger _log;
     private readonly CoordinatorHostOptions _options;
@@ -70,6 +90,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     private int _pendingCount, _expectedUploads, _connected;
     private long _wireBytes;
     private volatile bool _finished;
+    private readonly string? _checkpoint;
+    private int _checkpointRound;
+    private double _earlierSeconds;
 
     /// <summary>Sets up the coordinator for the run.</summary>
     /// <param name="options">Settings.</param>
@@ -89,7 +112,32 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         {
             _roster[_scenario.Households[m].Id] = m;
         }
-        if (options.TranscriptPath is not null)
+        byte[]? snapshot = null;
+        long transcriptBytes = -1;
+        ulong transcriptRecords = 0;
+        if (options.StateFolder is not null)
+        {
+            Directory.CreateDirectory(options.StateFolder);
+            _checkpoint = Path.Combine(options.StateFolder, CheckpointFileName);
+            if (File.Exists(_checkpoint))
+            {
+                if (!options.Resume)
+                {
+                    throw new InvalidOperationException($"{_checkpoint}: the run folder holds a checkpoint; resume it (--resume) or choose an empty folder");
+                }
+                (snapshot, transcriptBytes, transcriptRecords, _wireBytes, _earlierSeconds) = CheckpointFile.Read(_checkpoint, options.Run, CheckpointKind, r =>
+                    (r.ReadBytes(r.ReadInt32()), r.ReadInt64(), r.ReadUInt64(), r.ReadInt64(), r.ReadDouble()));
+                if ((transcriptBytes >= 0) != (options.TranscriptPath is not null))
+                {
+                    throw new InvalidOperationException($"{_checkpoint}: the checkpointed run {(transcriptBytes >= 0 ? "wrote" : "did not write")} a transcript; resume it with the same --transcript");
+                }
+            }
+        }
+        if (options.TranscriptPath is not null && snapshot is not null)
+        {
+            _writer = TranscriptWriter.Append(options.TranscriptPath, transcriptBytes, transcriptRecords);
+        }
+        else if (options.TranscriptPath is not null)
         {
             var (a, c) = Coordinator.Shapes(_n, features, run.Federation.Learning);
             _writer = TranscriptWriter.Create(options.TranscriptPath, new TranscriptHeader
@@ -116,6 +164,39 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         _sessions = new HouseholdSession?[_n];
         _pending = new HouseholdMessage?[_n];
         _selected = new bool[_n];
+        if (snapshot is not null)
+        {
+            using var reader = new BinaryReader(new MemoryStream(snapshot));
+            _coordinator.RestoreSnapshot(reader);
+            _checkpointRound = _coordinator.Round;
+            _watch.Start();
+            _log.LogInformation("resumed from {Checkpoint}: round {Round}, step {Step}; waiting for the households to rejoin", _checkpoint, _coordinator.Round, _coordinator.Step + 1);
+        }
+    }
+
+    /// <summary>The round the last checkpoint was written for (0: none yet).</summary>
+    public int CheckpointRound => _checkpointRound;
+
+    private void WriteCheckpoint()
+    {
+        _writer?.FlushToDisk();
+        using var buffer = new MemoryStream();
+        using (var w = new BinaryWriter(buffer))
+        {
+            _coordinator.WriteSnapshot(w);
+        }
+        byte[] snapshot = buffer.ToArray();
+        CheckpointFile.Write(_checkpoint!, _options.Run, CheckpointKind, w =>
+        {
+            w.Write(snapshot.Length);
+            w.Write(snapshot);
+            w.Write(_writer?.BytesWritten ?? -1);
+            w.Write(_writer?.RecordCount ?? 0);
+            w.Write(Interlocked.Read(ref _wireBytes));
+            w.Write(_earlierSeconds + _watch.Elapsed.TotalSeconds);
+        });
+        _checkpointRound = _coordinator.Round;
+        _log.LogInformation("checkpoint written: round {Round} starts at step {Step} ({Path})", _coordinator.Round, _coordinator.Step + 1, _checkpoint);
     }
 
     /// <summary>Settings.</summary>
@@ -143,7 +224,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 Finished = _finished,
                 Rounds = _coordinator.AggregatedRounds + _coordinator.FailedRounds,
                 WireBytes = _wireBytes,
-                RunSeconds = _watch.Elapsed.TotalSeconds,
+                RunSeconds = _earlierSeconds + _watch.Elapsed.TotalSeconds,
             };
             if (_finished)
             {
@@ -163,12 +244,17 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         }
         lock (_gate)
         {
-            if (_sessions[m] is not null || _coordinator.Phase != CoordinatorPhase.Admitting)
+            if (_finished)
+            {
+                throw new RpcException(new Status(StatusCode.FailedPrecondition, $"the run is over; household '{join.HouseholdId}' cannot join"));
+            }
+            if (_sessions[m] is not null)
             {
                 _log.LogWarning("rejected join: household '{Id}' already has a session", join.HouseholdId);
                 throw new RpcException(new Status(StatusCode.AlreadyExists, $"household '{join.HouseholdId}' already joined"));
             }
-            var s = new HouseholdSession(m, join.HouseholdId);
+            bool rejoin = _coordinator.Phase != CoordinatorPhase.Admitting;
+            var s = new HouseholdSession(m, join.HouseholdId, rejoin);
             _sessions[m] = s;
             _connected++;
             return s;
@@ -193,6 +279,10 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 {
                     OnTimeout(item.TimeoutRound);
                 }
+                else if (item.RejoinCheck >= 0)
+                {
+                    OnRejoinDeadline(item.RejoinCheck, item.Session!);
+                }
                 else if (item.Disconnected)
                 {
                     OnClosed(item.Session!);
@@ -204,6 +294,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 if (_done.Task.IsCompleted)
                 {
                     break;
+                }
+                if (_checkpointRound == _options.HoldAfterCheckpointRound && _checkpointRound > 0)
+                {
+                    _log.LogWarning("holding after the checkpoint of round {Round} (fault injection)", _checkpointRound);
+                    await Task.Delay(Timeout.Infinite, cancel);
                 }
             }
         }
@@ -233,6 +328,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             return;
         }
         int m = session.Index;
+        if (session.Rejoin && message.BodyCase == HouseholdMessage.BodyOneofCase.Join)
+        {
+            OnRejoin(session, message);
+            return;
+        }
         string? wrong = Expected(m, message);
         if (wrong is not null)
         {
@@ -311,7 +411,15 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 _coordinator.CloseRound(this);
             }
         }
-        if (_coordinator.Step == _totalSteps - 1 && _coordinator.Phase == CoordinatorPhase.CollectingPartialSums)
+        bool last = _coordinator.Step == _totalSteps - 1;
+        if (_checkpoint is not null && !last && _coordinator.AtRoundStart && _coordinator.Round > _checkpointRound)
+        {
+            lock (_gate)
+            {
+                WriteCheckpoint();
+            }
+        }
+        if (last && _coordinator.Phase == CoordinatorPhase.CollectingPartialSums)
         {
             lock (_gate)
             {
@@ -359,12 +467,63 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             }
         }
         session.Outgoing.Writer.TryComplete();
-        if (_finished)
+        if (_finished || _sessions[session.Index] is not null)
         {
             return;
         }
-        _log.LogError("household {Index} ('{Id}') left before the run was over", session.Index, session.Id);
-        _done.TrySetResult(Outcome(false, $"household '{session.Id}' left before the run was over"));
+        int m = session.Index;
+        if (_coordinator.Phase == CoordinatorPhase.CollectingUploads || _coordinator.AtRoundStart)
+        {
+            // Between rounds the household can come back: a message it left pending at this round start is dropped (it
+            // resends it after rejoining); an upload it left pending still counts.
+            if (_coordinator.Phase != CoordinatorPhase.CollectingUploads && _pending[m] is not null)
+            {
+                _pending[m] = null;
+                _pendingCount--;
+            }
+            _log.LogWarning("household {Index} ('{Id}') lost its connection in round {Round} ({Phase}); waiting up to {Seconds:0} s for it to rejoin at a round start",
+                m, session.Id, _coordinator.Round, _coordinator.Phase, _options.RejoinTimeout.TotalSeconds);
+            _ = Task.Delay(_options.RejoinTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(session, null, false, -1, m)), TaskScheduler.Default);
+            return;
+        }
+        _log.LogError("household {Index} ('{Id}') left in the middle of step {Step}", m, session.Id, _coordinator.Step);
+        _done.TrySetResult(Outcome(false, $"household '{session.Id}' left in the middle of step {_coordinator.Step}"));
+    }
+
+    private void OnRejoinDeadline(int m, HouseholdSession lost)
+    {
+        lock (_gate)
+        {
+            if (_finished || _sessions[m] is not null)
+            {
+                return;
+            }
+        }
+        _log.LogError("household {Index} ('{Id}') did not rejoin within {Seconds:0} s", m, lost.Id, _options.RejoinTimeout.TotalSeconds);
+        _done.TrySetResult(Outcome(false, $"household '{lost.Id}' did not rejoin within {_options.RejoinTimeout.TotalSeconds:0} s"));
+    }
+
+    private void OnRejoin(HouseholdSession session, HouseholdMessage join)
+    {
+        if (!_coordinator.AtRoundStart)
+        {
+            // Mid-round: the household retries and comes in at the next round start.
+            Reject(session, StatusCode.Unavailable, $"household '{session.Id}' rejoins during round {_coordinator.Round} ({_coordinator.Phase}); households rejoin at a round start, retry");
+            return;
+        }
+        try
+        {
+            lock (_gate)
+            {
+                _coordinator.Rejoin(join, this);
+            }
+        }
+        catch (ProtocolException e)
+        {
+            Reject(session, StatusCode.FailedPrecondition, e.Message);
+            return;
+        }
+        _log.LogInformation("household {Index} ('{Id}') rejoined at the start of round {Round}", session.Index, session.Id, _coordinator.Round);
     }
 
     private void Reject(HouseholdSession session, StatusCode code, string detail)
@@ -415,7 +574,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     private CoordinatorOutcome Outcome(bool ok, string? error) => new(ok, error, _coordinator.AggregatedRounds + _coordinator.FailedRounds,
         _coordinator.AggregatedRounds, _coordinator.FailedRounds, Math.Max(0, _coordinator.Step + 1), _n,
         ok ? Convert.ToHexStringLower(RunHashes.Model(_coordinator.Actor.Parameters, _coordinator.Critic.Parameters)) : "",
-        _watch.Elapsed.TotalSeconds, Interlocked.Read(ref _wireBytes));
+        _earlierSeconds + _watch.Elapsed.TotalSeconds, Interlocked.Read(ref _wireBytes));
 
     /// <inheritdoc />
     public void Dispose() => _writer?.Dispose();

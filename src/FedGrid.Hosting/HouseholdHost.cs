@@ -7,6 +7,7 @@ using FedGrid.Hosting.Wire;
 using FedGrid.Households.Scenarios;
 using System.Net.Security;
 using System.Security.Cryptography.X509Certificates;
+using Google.Protobuf;
 using Grpc.Core;
 using Grpc.Net.Client;
 using Microsoft.Extensions.Logging;
@@ -19,19 +20,30 @@ namespace FedGrid.Hosting;
 /// data), connected to the coordinator by one <c>Session</c> stream. The loop is the in-process runner's, seen from
 /// one household: begin a step (partial sums), answer the sums (projection inputs), apply the setpoint to the world and
 /// report the cost, at a round's end train when called and wait for the broadcast.
+/// <para>
+/// With a <see cref="StateFolder"/> the household checkpoints its own state at every round end (when the training call
+/// arrives, before it trains): its agent, the setpoints it applied (its world is replayed from them) and the call. A
+/// broken stream is retried with backoff; every connection joins afresh, and when the coordinator answers with the
+/// model of a round R &gt; 0 (a rejoin) the household restores its checkpoint of round R − 1, trains as it did then
+/// (the upload is not resent: the round is closed) and continues with the model of round R.
+/// </para>
 /// </summary>
 public sealed class HouseholdHost
 {
+    private const int KeptCheckpoints = 2;
     private readonly HostedRunSettings _run;
     private readonly string _id;
     private readonly ILogger _log;
-    private readonly HouseholdAgent _agent;
-    private readonly HouseholdControlTask _world;
+    private readonly Scenario _own;
+    private readonly FederatedRunOptions _options;
     private readonly float[] _state = new float[HouseholdControlTask.FeaturesPerHousehold];
     private readonly float[] _action = new float[1], _cost = new float[1];
+    private readonly List<float> _applied = [];
+    private HouseholdAgent _agent;
+    private HouseholdControlTask _world;
+    private JoinAccepted? _accepted;
     private long _step;
-    private bool _admitted;
-    private HouseholdMessage? _join;
+    private bool _everAdmitted;
 
     /// <summary>Derives the household's own data.</summary>
     /// <param name="run">The run.</param>
@@ -46,13 +58,10 @@ public sealed class HouseholdHost
         _id = householdId;
         _log = log;
         Scenario full = run.CreateScenario();
-        (int index, Scenario own) = HostedRunSettings.OwnView(full, householdId);
+        (int index, _own) = HostedRunSettings.OwnView(full, householdId);
         Index = index;
-        FederatedRunOptions options = run.CreateRunOptions();
-        _world = new HouseholdControlTask(own, new HouseholdTaskOptions(Project: false));
-        Federation.Households.HouseholdIdentity identity = new(own.Households[0].Id, own.Households[0].BusId, own.Households[0].KvarPerKw, HouseholdControlTask.FeaturesPerHousehold);
-        _agent = new HouseholdAgent(identity, options.Federation, options.Scheme!, InProcessFederation.HouseholdSeed(options.Federation, index),
-            options.ProjectionForm ?? new HouseholdProjectionInputs());
+        _options = run.CreateRunOptions();
+        (_agent, _world) = Fresh();
     }
 
     /// <summary>The household's block index in the scenario.</summary>
@@ -61,14 +70,39 @@ public sealed class HouseholdHost
     /// <summary>Decision steps done.</summary>
     public long Steps => _step;
 
-    /// <summary>Joins the coordinator at <paramref name="address"/> and runs every step of the scenario.</summary>
+    /// <summary>Folder of the household's own round-end checkpoints, or null for none (then a lost connection after round 0 cannot be resumed).</summary>
+    public string? StateFolder { get; init; }
+
+    /// <summary>How long the household keeps trying to reach the coordinator without progress before it gives up.</summary>
+    public TimeSpan ReconnectWindow { get; init; } = TimeSpan.FromMinutes(5);
+
+    /// <summary>Fault injection for tests: in this round, after the checkpoint, the household holds its upload (as a gateway that hangs while training) until it is stopped; −1 for never.</summary>
+    public int HoldUploadInRound { get; init; } = -1;
+
+    /// <summary>Rejoins after a lost connection (restores from its checkpoint).</summary>
+    public int Rejoins { get; private set; }
+
+    private (HouseholdAgent Agent, HouseholdControlTask World) Fresh()
+    {
+        var world = new HouseholdControlTask(_own, new HouseholdTaskOptions(Project: false));
+        world.Reset(_options.Federation.Learning.Seed);
+        Federation.Households.HouseholdIdentity identity = new(_own.Households[0].Id, _own.Households[0].BusId, _own.Households[0].KvarPerKw, HouseholdControlTask.FeaturesPerHousehold);
+        var agent = new HouseholdAgent(identity, _options.Federation, _options.Scheme!, InProcessFederation.HouseholdSeed(_options.Federation, Index),
+            _options.ProjectionForm ?? new HouseholdProjectionInputs());
+        return (agent, world);
+    }
+
+    /// <summary>Joins the coordinator at <paramref name="address"/> and runs every step of the scenario, reconnecting with backoff when the stream breaks.</summary>
     /// <param name="address">The coordinator, e.g. http://127.0.0.1:5000.</param>
     /// <param name="cancel">Stops the run.</param>
     /// <param name="tlsFolder">Folder holding <c>ca.crt</c> and this household's <c>&lt;id&gt;.pfx</c> for mutual TLS (an https address), or null for plain text.</param>
     public async Task RunAsync(Uri address, CancellationToken cancel, string? tlsFolder = null)
     {
-        // A connection that fails before admission (coordinator not up yet, TLS handshake lost on a busy machine) is
-        // retried: nothing of this household reached the coordinator's state machine.
+        ArgumentNullException.ThrowIfNull(address);
+        // A restarted household that holds checkpoints was admitted before: it reconnects like one.
+        _everAdmitted |= StateFolder is not null && Directory.Exists(StateFolder) && Directory.EnumerateFiles(StateFolder, _id + ".round-*.ckpt").Any();
+        var sinceProgress = System.Diagnostics.Stopwatch.StartNew();
+        long progressMark = 0;
         for (int attempt = 1; ; attempt++)
         {
             try
@@ -76,17 +110,40 @@ public sealed class HouseholdHost
                 await RunOnceAsync(address, cancel, tlsFolder);
                 return;
             }
-            catch (RpcException e) when (e.StatusCode == StatusCode.Unavailable && !_admitted && attempt < 10)
+            // Before the first admission only UNAVAILABLE is retried, 10 times (the coordinator not up yet, a handshake
+            // lost on a busy machine); a household that was admitted keeps reconnecting within the window.
+            catch (Exception e) when (Retryable(e, cancel, _everAdmitted) && (_everAdmitted || attempt < 10))
             {
-                _log.LogWarning("household '{Id}': connection failed before admission ({Detail}); retry {Attempt}", _id, e.Status.Detail, attempt);
-                await Task.Delay(TimeSpan.FromMilliseconds(250 * attempt), cancel);
+                if (_step != progressMark)
+                {
+                    progressMark = _step;
+                    sinceProgress.Restart();
+                    attempt = 1;
+                }
+                if (sinceProgress.Elapsed > ReconnectWindow)
+                {
+                    throw new TimeoutException($"household '{_id}': no progress for {ReconnectWindow.TotalSeconds:0} s of reconnecting; last error: {e.Message}", e);
+                }
+                var delay = TimeSpan.FromMilliseconds(Math.Min(5000, 200 * (1 << Math.Min(attempt - 1, 5))));
+                _log.LogWarning("household '{Id}': connection lost or refused ({Detail}); retry {Attempt} in {Delay:0.0} s", _id,
+                    e is RpcException r ? $"{r.StatusCode}: {r.Status.Detail}" : e.Message, attempt, delay.TotalSeconds);
+                await Task.Delay(delay, cancel);
             }
         }
     }
 
+    private static bool Retryable(Exception e, CancellationToken cancel, bool admitted) => !cancel.IsCancellationRequested && e switch
+    {
+        RpcException r when !admitted => r.StatusCode == StatusCode.Unavailable,
+        _ when !admitted => false,
+        RpcException r => r.StatusCode is StatusCode.Unavailable or StatusCode.Internal or StatusCode.Unknown or StatusCode.AlreadyExists
+            or StatusCode.Cancelled or StatusCode.Aborted or StatusCode.DeadlineExceeded,
+        HttpRequestException or IOException => true,
+        _ => false,
+    };
+
     private async Task RunOnceAsync(Uri address, CancellationToken cancel, string? tlsFolder)
     {
-        ArgumentNullException.ThrowIfNull(address);
         using var handler = new SocketsHttpHandler { EnableMultipleHttp2Connections = false };
         if (tlsFolder is not null)
         {
@@ -107,14 +164,31 @@ public sealed class HouseholdHost
         var client = new FederationHost.FederationHostClient(channel);
         using AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call = client.Session(cancellationToken: cancel);
         IClientStreamWriter<HouseholdMessage> send = call.RequestStream;
-        _join ??= _agent.Join().Clone(); // the agent joins once; a retried connection resends the same request
-        await send.WriteAsync(_join, cancel);
-        _world.Reset(_run.CreateRunOptions().Federation.Learning.Seed);
-        int stepsPerRound = _run.StepsPerRound;
-        bool done = false;
+        // Every connection starts from a fresh machine; a rejoin then restores the checkpoint the coordinator's round asks for.
+        (_agent, _world) = Fresh();
+        _step = 0;
+        _applied.Clear();
+        await send.WriteAsync(_agent.Join(), cancel);
+        bool done = false, first = true;
         await foreach (CoordinatorMessage message in call.ResponseStream.ReadAllAsync(cancel))
         {
-            _admitted = true;
+            if (message.BodyCase == CoordinatorMessage.BodyOneofCase.Model && first)
+            {
+                first = false;
+                if (message.Model.Round > 0)
+                {
+                    Restore(message.Model.Round);
+                }
+            }
+            if (message.BodyCase == CoordinatorMessage.BodyOneofCase.Training && _agent.CanSnapshot)
+            {
+                Checkpoint(message.Training);
+                if (message.Training.Round == HoldUploadInRound && message.Training.Selected)
+                {
+                    _log.LogWarning("household '{Id}': holding the upload of round {Round} (fault injection)", _id, message.Training.Round);
+                    await Task.Delay(Timeout.Infinite, cancel);
+                }
+            }
             HouseholdMessage? reply = _agent.Receive(message);
             if (reply is not null)
             {
@@ -123,29 +197,26 @@ public sealed class HouseholdHost
             switch (message.BodyCase)
             {
                 case CoordinatorMessage.BodyOneofCase.Accepted:
+                    _accepted = message.Accepted.Clone();
+                    _everAdmitted = true;
                     _log.LogInformation("household '{Id}' admitted as {Index} of {Count}", _id, message.Accepted.HouseholdIndex, message.Accepted.HouseholdCount);
                     break;
                 case CoordinatorMessage.BodyOneofCase.Model when _agent.Phase == HouseholdPhase.Ready:
                     done = await NextOrDone(send, cancel);
                     break;
                 case CoordinatorMessage.BodyOneofCase.Setpoint:
-                    _action[0] = (float)_agent.Setpoint;
-                    bool dayOver = _world.Step(_action, _cost);
+                    int day = _world.Day + 1;
+                    bool dayOver = Apply((float)_agent.Setpoint);
                     HouseholdMessage? after = _agent.CompleteStep(_cost[0]);
                     if (after is not null)
                     {
                         await send.WriteAsync(after, cancel);
                     }
-                    _step++;
                     if (dayOver)
                     {
-                        _log.LogInformation("household '{Id}': day {Day} done", _id, _world.Day + 1);
-                        if (!_world.HorizonOver)
-                        {
-                            _world.NextDay();
-                        }
+                        _log.LogInformation("household '{Id}': day {Day} done", _id, day);
                     }
-                    if (_step % stepsPerRound != 0)
+                    if (_step % _run.StepsPerRound != 0)
                     {
                         done = await NextOrDone(send, cancel);
                     }
@@ -156,12 +227,102 @@ public sealed class HouseholdHost
                 break;
             }
         }
-        await send.CompleteAsync();
-        // Drain until the coordinator ends the stream.
-        await foreach (CoordinatorMessage _ in call.ResponseStream.ReadAllAsync(cancel))
+        if (!done)
         {
+            // The coordinator ended the stream before the last step: a restart or a lost connection; reconnect.
+            throw new RpcException(new Status(StatusCode.Unavailable, "the coordinator ended the session before the run was over"));
+        }
+        try
+        {
+            await send.CompleteAsync();
+            // Drain until the coordinator ends the stream.
+            await foreach (CoordinatorMessage _ in call.ResponseStream.ReadAllAsync(cancel))
+            {
+            }
+        }
+        catch (RpcException e) when (e.StatusCode != StatusCode.Cancelled || !cancel.IsCancellationRequested)
+        {
+            // Every step is done; the coordinator stopping first is not a failure.
+            _log.LogInformation("household '{Id}': coordinator gone after the last step ({Code})", _id, e.StatusCode);
         }
         _log.LogInformation("household '{Id}' finished after {Steps} steps", _id, _step);
+    }
+
+    /// <summary>Applies one setpoint to the household's world (live and when replaying a checkpoint).</summary>
+    private bool Apply(float setpoint)
+    {
+        _action[0] = setpoint;
+        bool dayOver = _world.Step(_action, _cost);
+        _applied.Add(setpoint);
+        _step++;
+        if (dayOver && !_world.HorizonOver)
+        {
+            _world.NextDay();
+        }
+        return dayOver;
+    }
+
+    private string CheckpointPath(int round) => Path.Combine(StateFolder!, FormattableString.Invariant($"{_id}.round-{round:D5}.ckpt"));
+
+    private void Checkpoint(TrainingCall call)
+    {
+        if (StateFolder is null)
+        {
+            return;
+        }
+        Directory.CreateDirectory(StateFolder);
+        byte[] accepted = _accepted!.ToByteArray();
+        CheckpointFile.Write(CheckpointPath(call.Round), _run, _id, w =>
+        {
+            w.Write(call.Round);
+            w.Write(call.Selected);
+            w.Write(accepted.Length);
+            w.Write(accepted);
+            w.Write(_step);
+            Federation.Protocol.SnapshotIO.WriteFloats(w, System.Runtime.InteropServices.CollectionsMarshal.AsSpan(_applied));
+            _agent.WriteSnapshot(w);
+        });
+        // Two generations: a coordinator restarted from its previous round end asks for the older one.
+        foreach (string old in Directory.EnumerateFiles(StateFolder, _id + ".round-*.ckpt").Order(StringComparer.Ordinal).SkipLast(KeptCheckpoints))
+        {
+            File.Delete(old);
+        }
+    }
+
+    private void Restore(int round)
+    {
+        string path = CheckpointPath(round - 1);
+        if (StateFolder is null || !File.Exists(path))
+        {
+            throw new InvalidOperationException($"household '{_id}': the coordinator continues with round {round}, and there is no checkpoint of round {round - 1} ({(StateFolder is null ? "no state folder" : path)})");
+        }
+        (HouseholdAgent agent, HouseholdControlTask world) = Fresh();
+        JoinAccepted accepted = _accepted!;
+        TrainingCall call = CheckpointFile.Read(path, _run, _id, r =>
+        {
+            var c = new TrainingCall { Round = r.ReadInt32(), Selected = r.ReadBoolean() };
+            JoinAccepted saved = JoinAccepted.Parser.ParseFrom(r.ReadBytes(r.ReadInt32()));
+            if (!saved.Equals(accepted))
+            {
+                throw new InvalidDataException("the admission differs from the checkpointed one");
+            }
+            long steps = r.ReadInt64();
+            var applied = new float[steps];
+            Federation.Protocol.SnapshotIO.ReadFloats(r, applied, "applied setpoints");
+            agent.RestoreSnapshot(saved, r);
+            (_agent, _world) = (agent, world);
+            _step = 0;
+            _applied.Clear();
+            foreach (float a in applied)
+            {
+                Apply(a);
+            }
+            return c;
+        });
+        // Train as the household did at that round end; the upload is not resent (the coordinator closed that round).
+        _agent.Receive(new CoordinatorMessage { HouseholdIndex = _agent.Index, Training = call });
+        Rejoins++;
+        _log.LogInformation("household '{Id}' restored its checkpoint of round {Old} ({Steps} steps replayed) and rejoins at round {Round}", _id, round - 1, _step, round);
     }
 
     private async Task<bool> NextOrDone(IClientStreamWriter<HouseholdMessage> send, CancellationToken cancel)

@@ -16,6 +16,9 @@ internal static class CoordinatorCommand
         var transcript = new Option<string?>("--transcript") { Description = "write the transcript (everything received, in order) to this file" };
         var timeout = new Option<double>("--round-timeout") { Description = "seconds a round waits for its uploads (default 60)", DefaultValueFactory = _ => 60 };
         var json = new Option<bool>("--json") { Description = "print the outcome as JSON" };
+        var state = new Option<string?>("--state") { Description = "run folder: a checkpoint (coordinator.ckpt) is written there atomically at every round end" };
+        var resume = new Option<bool>("--resume") { Description = "continue the run from the checkpoint in --state (starts afresh when there is none); without it an existing checkpoint is refused" };
+        var rejoin = new Option<double>("--rejoin-timeout") { Description = "seconds to wait for a household that lost its connection to rejoin (default 300)", DefaultValueFactory = _ => 300 };
         var insecure = HostOptions.InsecureLoopback();
         var tls = HostOptions.Tls();
         var cmd = new Command("coordinator", "Run the coordinator host of a multi-process federated run (gRPC).");
@@ -27,6 +30,11 @@ internal static class CoordinatorCommand
         cmd.Options.Add(transcript);
         cmd.Options.Add(timeout);
         cmd.Options.Add(json);
+        cmd.Options.Add(state);
+        cmd.Options.Add(resume);
+        cmd.Options.Add(rejoin);
+        var hold = new Option<int>("--hold-after-checkpoint") { Description = "fault injection for tests: stop taking messages after the checkpoint of this round", DefaultValueFactory = _ => -1, Hidden = true };
+        cmd.Options.Add(hold);
         cmd.Options.Add(insecure);
         cmd.Options.Add(tls);
         cmd.SetAction(async (parse, cancel) =>
@@ -39,7 +47,17 @@ internal static class CoordinatorCommand
             double seconds = parse.GetValue(timeout);
             if (!(seconds > 0))
                 throw new UserInputException($"--round-timeout must be positive, got {seconds}");
-            var options = new CoordinatorHostOptions { Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript) };
+            double rejoinSeconds = parse.GetValue(rejoin);
+            if (!(rejoinSeconds > 0))
+                throw new UserInputException($"--rejoin-timeout must be positive, got {rejoinSeconds}");
+            if (parse.GetValue(resume) && parse.GetValue(state) is null)
+                throw new UserInputException("--resume needs --state DIR (the run folder holding the checkpoint)");
+            var options = new CoordinatorHostOptions
+            {
+                Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript),
+                StateFolder = parse.GetValue(state), Resume = parse.GetValue(resume), RejoinTimeout = TimeSpan.FromSeconds(rejoinSeconds),
+                HoldAfterCheckpointRound = parse.GetValue(hold),
+            };
             var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), tlsFolder: folder);
             CoordinatorOutcome outcome = await CoordinatorHost.RunAsync(app, p => Console.Out.WriteLine($"coordinator: listening on {ip}:{p}"), cancel);
             if (parse.GetValue(result) is { } path)

@@ -12,6 +12,9 @@ internal static class HouseholdCommand
         var (runOptions, read) = HostOptions.Create(householdsRequired: false);
         var id = new Option<string>("--id") { Description = "the household's id (e.g. H01)", Required = true };
         var coordinator = new Option<string>("--coordinator") { Description = "the coordinator's address, e.g. http://127.0.0.1:5151", Required = true };
+        var state = new Option<string?>("--state") { Description = "folder of the household's own round-end checkpoints (needed to rejoin after a lost connection or a restart)" };
+        var reconnect = new Option<double>("--reconnect-window") { Description = "seconds to keep reconnecting without progress before giving up (default 300)", DefaultValueFactory = _ => 300 };
+        var hold = new Option<int>("--hold-upload-round") { Description = "fault injection for tests: hang instead of uploading in this round (after the checkpoint)", DefaultValueFactory = _ => -1, Hidden = true };
         var insecure = HostOptions.InsecureLoopback();
         var tls = HostOptions.Tls();
         var cmd = new Command("household", "Run one household host of a multi-process federated run (gRPC client).");
@@ -19,6 +22,9 @@ internal static class HouseholdCommand
             cmd.Options.Add(o);
         cmd.Options.Add(id);
         cmd.Options.Add(coordinator);
+        cmd.Options.Add(state);
+        cmd.Options.Add(reconnect);
+        cmd.Options.Add(hold);
         cmd.Options.Add(insecure);
         cmd.Options.Add(tls);
         cmd.SetAction(async (parse, cancel) =>
@@ -33,7 +39,13 @@ internal static class HouseholdCommand
             HouseholdHost host;
             try
             {
-                host = new HouseholdHost(read(parse), parse.GetValue(id)!, logs.CreateLogger("FedGrid.Household"));
+                double window = parse.GetValue(reconnect);
+                if (!(window > 0))
+                    throw new UserInputException($"--reconnect-window must be positive, got {window}");
+                host = new HouseholdHost(read(parse), parse.GetValue(id)!, logs.CreateLogger("FedGrid.Household"))
+                {
+                    StateFolder = parse.GetValue(state), ReconnectWindow = TimeSpan.FromSeconds(window), HoldUploadInRound = parse.GetValue(hold),
+                };
             }
             catch (ArgumentException e)
             {

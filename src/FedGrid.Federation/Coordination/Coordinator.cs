@@ -270,17 +270,7 @@ public sealed class Coordinator
         _registered[m] = new RegisteredHousehold(m, join.HouseholdId, join.BusId, join.TanPhi,
             join.ProjectionPublicKey.IsEmpty ? null : join.ProjectionPublicKey.ToByteArray());
         _joined++;
-        var accepted = new JoinAccepted
-        {
-            HouseholdIndex = m,
-            HouseholdCount = _m,
-            Scheme = _setup.Scheme.Name,
-            ActorShape = ShapeCodec.ToSpec(ActorShape),
-            CriticShape = ShapeCodec.ToSpec(CriticShape),
-            StepsPerRound = _stepsPerRound,
-            ProjectionInputs = _setup.ProjectionForm.Name,
-        };
-        Send(outbox, new CoordinatorMessage { HouseholdIndex = m, Accepted = accepted }, -1);
+        Send(outbox, new CoordinatorMessage { HouseholdIndex = m, Accepted = AcceptedFor(m) }, -1);
         if (_joined < _m)
         {
             return;
@@ -641,5 +631,169 @@ public sealed class Coordinator
     {
         _transcript.Sent(_round, step, message);
         outbox.Send(message);
+    }
+
+
+    // ---- Round-end checkpoint and rejoin (additive region; round starts only, not on the decision-step path) ----
+
+    private const int SnapshotVersion = 1;
+
+    /// <summary>Whether the machine stands at a round start: the previous round closed, no step of this round begun (the only point where it can be checkpointed or a household can rejoin).</summary>
+    public bool AtRoundStart => Phase == CoordinatorPhase.CollectingPartialSums && _stepCount == 0 && _projectionCount == 0 && (_step + 1) % _stepsPerRound == 0;
+
+    private JoinAccepted AcceptedFor(int m) => new()
+    {
+        HouseholdIndex = m,
+        HouseholdCount = _m,
+        Scheme = _setup.Scheme.Name,
+        ActorShape = ShapeCodec.ToSpec(ActorShape),
+        CriticShape = ShapeCodec.ToSpec(CriticShape),
+        StepsPerRound = _stepsPerRound,
+        ProjectionInputs = _setup.ProjectionForm.Name,
+    };
+
+    /// <summary>
+    /// Writes everything the machine needs to continue from this round start: round, last step, counters, the registered
+    /// households, the model and the projection side's state (the solver's warm start). The selection needs no state (it
+    /// is drawn from the seed and the round); the clear schemes' coordinator side keeps none between rounds.
+    /// </summary>
+    /// <param name="writer">Where to write.</param>
+    /// <exception cref="InvalidOperationException">Not at a round start.</exception>
+    /// <exception cref="NotSupportedException">The scheme keeps coordinator state across rounds that is not checkpointed.</exception>
+    public void WriteSnapshot(BinaryWriter writer)
+    {
+        ArgumentNullException.ThrowIfNull(writer);
+        if (!AtRoundStart || _projection is null)
+        {
+            throw new InvalidOperationException($"the coordinator can be checkpointed at a round start only (phase {Phase}, step {_step})");
+        }
+        if (_setup.Scheme is not ClearScheme)
+        {
+            throw new NotSupportedException($"scheme '{_setup.Scheme.Name}' cannot be checkpointed (only the clear schemes)");
+        }
+        writer.Write(SnapshotVersion);
+        writer.Write(_m);
+        writer.Write(_round);
+        writer.Write(_step);
+        writer.Write(AggregatedRounds);
+        writer.Write(FailedRounds);
+        foreach (int n in ProjectionOutcomes)
+        {
+            writer.Write(n);
+        }
+        foreach (RegisteredHousehold? h in _registered)
+        {
+            writer.Write(h!.Id);
+            writer.Write(h.BusId);
+            writer.Write(h.TanPhi);
+            writer.Write(h.ProjectionPublicKey?.Length ?? -1);
+            writer.Write(h.ProjectionPublicKey ?? []);
+        }
+        SnapshotIO.WriteFloats(writer, _actor.Parameters);
+        SnapshotIO.WriteFloats(writer, _critic.Parameters);
+        _projection.WriteState(writer);
+    }
+
+    /// <summary>Restores a fresh machine (nobody joined) to the round start of <see cref="WriteSnapshot"/>; the households then <see cref="Rejoin"/>.</summary>
+    /// <param name="reader">Where to read.</param>
+    /// <exception cref="InvalidDataException">The snapshot does not fit this run (version, roster, shapes).</exception>
+    public void RestoreSnapshot(BinaryReader reader)
+    {
+        ArgumentNullException.ThrowIfNull(reader);
+        if (Phase != CoordinatorPhase.Admitting || _joined != 0)
+        {
+            throw new InvalidOperationException("a snapshot is restored into a fresh coordinator only");
+        }
+        int version = reader.ReadInt32();
+        if (version != SnapshotVersion)
+        {
+            throw new InvalidDataException($"coordinator snapshot version {version}; this build reads {SnapshotVersion}");
+        }
+        int m = reader.ReadInt32();
+        if (m != _m)
+        {
+            throw new InvalidDataException($"coordinator snapshot of {m} households; the run has {_m}");
+        }
+        int round = reader.ReadInt32();
+        long step = reader.ReadInt64();
+        if (round < 0 || (step + 1) != (long)round * _stepsPerRound)
+        {
+            throw new InvalidDataException($"coordinator snapshot at round {round} step {step} is not a round start of {_stepsPerRound} steps");
+        }
+        int aggregated = reader.ReadInt32(), failed = reader.ReadInt32();
+        for (int i = 0; i < ProjectionOutcomes.Length; i++)
+        {
+            ProjectionOutcomes[i] = reader.ReadInt32();
+        }
+        var registered = new RegisteredHousehold[_m];
+        for (int h = 0; h < _m; h++)
+        {
+            string id = reader.ReadString(), bus = reader.ReadString();
+            double tanPhi = reader.ReadDouble();
+            int keyLength = reader.ReadInt32();
+            byte[]? key = keyLength < 0 ? null : reader.ReadBytes(keyLength);
+            if (id != _setup.Roster[h])
+            {
+                throw new InvalidDataException($"coordinator snapshot names household '{id}' at index {h}; the roster has '{_setup.Roster[h]}'");
+            }
+            registered[h] = new RegisteredHousehold(h, id, bus, tanPhi, key);
+        }
+        SnapshotIO.ReadFloats(reader, _actor.Parameters, "actor");
+        SnapshotIO.ReadFloats(reader, _critic.Parameters, "critic");
+        _projection = _setup.ProjectionForm.CreateCoordinatorSide(_setup.Feeder, registered, _setup.FixedLoads, _setup.Projection);
+        _projection.ReadState(reader);
+        registered.CopyTo(_registered, 0);
+        _joined = _m;
+        _round = round;
+        _step = step;
+        AggregatedRounds = aggregated;
+        FailedRounds = failed;
+        Phase = CoordinatorPhase.CollectingPartialSums;
+    }
+
+    /// <summary>
+    /// A registered household that lost its connection joins again at a round start: its join is recorded, checked
+    /// against its registration, and it is sent its admission, its projection set-up and the round's model (the shared
+    /// part, as the round's broadcast; at round 0 with its own columns when the scheme sends them).
+    /// </summary>
+    /// <param name="message">The household's join request.</param>
+    /// <param name="outbox">Where the replies go.</param>
+    /// <exception cref="ProtocolException">Not at a round start, not registered, or the join differs from the registration.</exception>
+    public void Rejoin(HouseholdMessage message, ICoordinatorOutbox outbox)
+    {
+        ArgumentNullException.ThrowIfNull(message);
+        ArgumentNullException.ThrowIfNull(outbox);
+        _transcript.Received(_round, -1, message);
+        if (message.BodyCase != HouseholdMessage.BodyOneofCase.Join)
+        {
+            throw new ProtocolException($"a rejoin is a join request, not {message.BodyCase}");
+        }
+        JoinRequest join = message.Join;
+        if (!AtRoundStart)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' rejoins in phase {Phase} at step {_step}; households rejoin at a round start");
+        }
+        if (!_rosterIndex.TryGetValue(join.HouseholdId, out int m) || _registered[m] is not { } r)
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' rejoins but is not registered");
+        }
+        byte[] key = join.ProjectionPublicKey.ToByteArray();
+        if (join.BusId != r.BusId || join.TanPhi.CompareTo(r.TanPhi) != 0 || join.FeatureCount != _setup.FeatureCount
+            || !key.AsSpan().SequenceEqual(r.ProjectionPublicKey ?? []))
+        {
+            throw new ProtocolException($"household '{join.HouseholdId}' rejoins with a bus, tan phi, feature count or key other than it registered with");
+        }
+        Send(outbox, new CoordinatorMessage { HouseholdIndex = m, Accepted = AcceptedFor(m) }, -1);
+        var setupMessage = new CoordinatorMessage();
+        if (_projection!.TryWriteSetup(m, setupMessage))
+        {
+            Send(outbox, setupMessage, -1);
+        }
+        bool own = _round == 0 && _setup.Scheme.ColumnsCrossWire;
+        var model = new ModelBroadcast { Round = _round, Scope = own ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared };
+        Append(model.ActorParameters, _actor, own ? m : -1);
+        Append(model.CriticParameters, _critic, own ? m : -1);
+        Send(outbox, new CoordinatorMessage { HouseholdIndex = m, Model = model }, -1);
+        _transcript.Flush();
     }
 }

@@ -477,4 +477,100 @@ public sealed class HouseholdAgent
             throw new ProtocolException($"household {(_index >= 0 ? _index.ToString(System.Globalization.CultureInfo.InvariantCulture) : _identity.Id)} cannot {action} in phase {Phase}");
         }
     }
+
+
+    // ---- Round-end checkpoint (additive region; round ends only, not on the decision-step path) ----
+
+    private const int SnapshotVersion = 1;
+
+    /// <summary>Whether the machine can be checkpointed now: every step of the round done, before its training call is taken.</summary>
+    public bool CanSnapshot => Phase == HouseholdPhase.Ready && _hasModel && _pendingTrainingRound < 0 && _buffer is not null;
+
+    /// <summary>
+    /// Writes the household's own state at a round end (after the round's steps, before its training call): round, last
+    /// step, its readings of that step, its full networks (its own columns included), the round's transitions and its
+    /// exploration generator. The optimisers need nothing: they are reset whenever a model arrives and step only in training.
+    /// The admission is not part of it (the caller keeps the <see cref="JoinAccepted"/> and passes it to <see cref="RestoreSnapshot"/>).
+    /// </summary>
+    /// <param name="writer">Where to write.</param>
+    /// <exception cref="InvalidOperationException">Not at a round end (<see cref="CanSnapshot"/>).</exception>
+    /// <exception cref="NotSupportedException">The scheme or projection form keeps household state that is not checkpointed.</exception>
+    public void WriteSnapshot(BinaryWriter writer)
+    {
+        ArgumentNullException.ThrowIfNull(writer);
+        if (!CanSnapshot)
+        {
+            throw new InvalidOperationException($"household {_index} can be checkpointed at a round end only (phase {Phase})");
+        }
+        if (_scheme is not ClearScheme || _form is not HouseholdProjectionInputs)
+        {
+            throw new NotSupportedException($"scheme '{_scheme.Name}' with projection form '{_form.Name}' cannot be checkpointed (only the clear schemes with the household form)");
+        }
+        TransitionBuffer b = _buffer!;
+        writer.Write(SnapshotVersion);
+        writer.Write(_index);
+        writer.Write(_round);
+        writer.Write(_step);
+        writer.Write(_flexMin);
+        writer.Write(_flexMax);
+        writer.Write(_baseKw);
+        writer.Write(_proposal);
+        writer.Write(_setpoint);
+        SnapshotIO.WriteFloats(writer, _x);
+        SnapshotIO.WriteFloats(writer, _actor!.Parameters);
+        SnapshotIO.WriteFloats(writer, _critic!.Parameters);
+        writer.Write(b.Count);
+        foreach (float[] a in new[] { b.State, b.ActorOthers, b.CriticOthers, b.PreSquash, b.Lower, b.Upper, b.Cost })
+        {
+            SnapshotIO.WriteFloats(writer, a);
+        }
+        _random!.WriteState(writer);
+    }
+
+    /// <summary>Restores a new machine (<see cref="HouseholdPhase.Created"/>) to the round end of <see cref="WriteSnapshot"/>: admitted with <paramref name="accepted"/>, then phase <see cref="HouseholdPhase.Ready"/> waiting for the round's training call.</summary>
+    /// <param name="accepted">The admission the household had when it wrote the snapshot.</param>
+    /// <param name="reader">Where to read.</param>
+    /// <exception cref="InvalidDataException">The snapshot does not fit the admission.</exception>
+    public void RestoreSnapshot(JoinAccepted accepted, BinaryReader reader)
+    {
+        ArgumentNullException.ThrowIfNull(accepted);
+        ArgumentNullException.ThrowIfNull(reader);
+        Expect(HouseholdPhase.Created, "restore a snapshot");
+        int version = reader.ReadInt32();
+        if (version != SnapshotVersion)
+        {
+            throw new InvalidDataException($"household snapshot version {version}; this build reads {SnapshotVersion}");
+        }
+        int index = reader.ReadInt32();
+        if (index != accepted.HouseholdIndex)
+        {
+            throw new InvalidDataException($"household snapshot of index {index}; the admission says {accepted.HouseholdIndex}");
+        }
+        Phase = HouseholdPhase.AwaitingAdmission;
+        Admit(accepted);
+        _round = reader.ReadInt32();
+        _step = reader.ReadInt64();
+        _flexMin = reader.ReadDouble();
+        _flexMax = reader.ReadDouble();
+        _baseKw = reader.ReadDouble();
+        _proposal = reader.ReadDouble();
+        _setpoint = reader.ReadDouble();
+        SnapshotIO.ReadFloats(reader, _x, "state block");
+        SnapshotIO.ReadFloats(reader, _actor!.Parameters, "actor");
+        SnapshotIO.ReadFloats(reader, _critic!.Parameters, "critic");
+        TransitionBuffer b = _buffer!;
+        int count = reader.ReadInt32();
+        if (count < 0 || count > b.Capacity)
+        {
+            throw new InvalidDataException($"household snapshot holds {count} transitions; the buffer takes {b.Capacity}");
+        }
+        foreach (float[] a in new[] { b.State, b.ActorOthers, b.CriticOthers, b.PreSquash, b.Lower, b.Upper, b.Cost })
+        {
+            SnapshotIO.ReadFloats(reader, a, "transitions");
+        }
+        b.Count = count;
+        _random!.ReadState(reader);
+        _hasModel = true;
+        Phase = HouseholdPhase.Ready;
+    }
 }

@@ -103,6 +103,15 @@ public interface ICoordinatorProjectionSide
     /// <param name="step">Step.</param>
     /// <param name="message">The outgoing message (its recipient and body are set).</param>
     void WriteReply(int household, int round, long step, CoordinatorMessage message);
+
+    /// <summary>Writes the state one step leaves for the next (e.g. a solver's warm start) for a round-end checkpoint.</summary>
+    /// <param name="writer">Where to write.</param>
+    /// <exception cref="NotSupportedException">The form keeps state it cannot checkpoint.</exception>
+    void WriteState(BinaryWriter writer) => throw new NotSupportedException($"the {GetType().Name} projection side cannot be checkpointed");
+
+    /// <summary>Restores a state of <see cref="WriteState"/>.</summary>
+    /// <param name="reader">Where to read.</param>
+    void ReadState(BinaryReader reader) => throw new NotSupportedException($"the {GetType().Name} projection side cannot be checkpointed");
 }
 
 /// <summary>
@@ -272,6 +281,10 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
             message.HouseholdIndex = household;
             message.Setpoint = r;
         }
+
+        public void WriteState(BinaryWriter writer) => _projector.WriteState(writer);
+
+        public void ReadState(BinaryReader reader) => _projector.ReadState(reader);
     }
 }
 

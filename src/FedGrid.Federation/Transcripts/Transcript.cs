@@ -104,6 +104,48 @@ public sealed class TranscriptWriter : ITranscriptSink, IDisposable
         Flush();
     }
 
+    private TranscriptWriter(FileStream stream, long bytes, ulong records)
+    {
+        _stream = stream;
+        _ownsStream = true;
+        _output = new CodedOutputStream(stream, 1 << 16, leaveOpen: true);
+        BytesWritten = bytes;
+        RecordCount = records;
+    }
+
+    /// <summary>
+    /// Continues a transcript file from a checkpoint: cuts it back to <paramref name="bytes"/> (what was flushed at the
+    /// checkpoint; records written after it are dropped, torn or whole) and appends from record <paramref name="records"/>.
+    /// </summary>
+    /// <param name="path">The transcript file.</param>
+    /// <param name="bytes"><see cref="BytesWritten"/> at the checkpoint.</param>
+    /// <param name="records"><see cref="RecordCount"/> at the checkpoint.</param>
+    /// <returns>The writer, positioned at the end.</returns>
+    /// <exception cref="InvalidDataException">The file is shorter than the checkpoint says.</exception>
+    public static TranscriptWriter Append(string path, long bytes, ulong records)
+    {
+        var stream = new FileStream(path, FileMode.Open, FileAccess.Write, FileShare.Read, 1 << 16);
+        if (stream.Length < bytes)
+        {
+            long length = stream.Length;
+            stream.Dispose();
+            throw new InvalidDataException($"{path}: transcript of {length} bytes; the checkpoint says {bytes} were written");
+        }
+        stream.SetLength(bytes);
+        stream.Seek(bytes, SeekOrigin.Begin);
+        return new TranscriptWriter(stream, bytes, records);
+    }
+
+    /// <summary>Flushes and asks the OS to put the file on disk (before a checkpoint names its length).</summary>
+    public void FlushToDisk()
+    {
+        Flush();
+        if (_stream is FileStream fs)
+        {
+            fs.Flush(flushToDisk: true);
+        }
+    }
+
     /// <summary>Creates (or overwrites) a transcript file.</summary>
     /// <param name="path">File path (conventionally ending in <see cref="TranscriptFormat.Extension"/>).</param>
     /// <param name="header">The header.</param>

@@ -140,6 +140,35 @@ public sealed class InteriorPointSolver
     /// <summary>Multipliers z ∈ K of the cone constraints (or the certificate's z).</summary>
     public ReadOnlySpan<double> Z => _zs;
 
+    /// <summary>Writes the warm-start state (whether a solution is held, and x, s, y, z of the last solve) for a checkpoint.</summary>
+    /// <param name="writer">Where to write.</param>
+    public void WriteWarmStart(BinaryWriter writer)
+    {
+        ArgumentNullException.ThrowIfNull(writer);
+        writer.Write(_hasSolution);
+        foreach (double[] a in new[] { _xs, _ss, _ys, _zs })
+        {
+            writer.Write(a.Length);
+            foreach (double v in a) writer.Write(v);
+        }
+    }
+
+    /// <summary>Restores the state of <see cref="WriteWarmStart"/> (same program shape), so the next solve starts where the checkpointed solver would have.</summary>
+    /// <param name="reader">Where to read.</param>
+    /// <exception cref="InvalidDataException">The state is for another program shape.</exception>
+    public void ReadWarmStart(BinaryReader reader)
+    {
+        ArgumentNullException.ThrowIfNull(reader);
+        bool has = reader.ReadBoolean();
+        foreach (double[] a in new[] { _xs, _ss, _ys, _zs })
+        {
+            int n = reader.ReadInt32();
+            if (n != a.Length) throw new InvalidDataException($"warm-start vector of {n} values; the program needs {a.Length}");
+            for (int i = 0; i < n; i++) a[i] = reader.ReadDouble();
+        }
+        _hasSolution = has;
+    }
+
     /// <summary>Solves the program with its current values. Allocation-free.</summary>
     public SolverResult Solve()
     {

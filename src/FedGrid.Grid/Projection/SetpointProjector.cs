@@ -115,6 +115,14 @@ public sealed class SetpointProjector
     /// <summary>Allocates a result sized for this feeder and these units.</summary>
     public ProjectionResult CreateResult() => new(_net.BusCount, _units.Length);
 
+    /// <summary>Writes the state one projection leaves for the next (the cone solver's warm start), for a checkpoint.</summary>
+    /// <param name="writer">Where to write.</param>
+    public void WriteState(BinaryWriter writer) => _solver.WriteWarmStart(writer);
+
+    /// <summary>Restores a state of <see cref="WriteState"/> of a projector of the same feeder and units.</summary>
+    /// <param name="reader">Where to read.</param>
+    public void ReadState(BinaryReader reader) => _solver.ReadWarmStart(reader);
+
     /// <summary>Projects one slot's proposal into a new result object.</summary>
     public ProjectionResult Project(ProjectionInput input)
     {

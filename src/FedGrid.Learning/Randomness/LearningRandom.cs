@@ -22,6 +22,32 @@ public sealed class LearningRandom
         _s3 = SplitMix64(ref x);
     }
 
+    /// <summary>Writes the generator's whole state (for a checkpoint).</summary>
+    /// <param name="writer">Where to write.</param>
+    public void WriteState(BinaryWriter writer)
+    {
+        ArgumentNullException.ThrowIfNull(writer);
+        writer.Write(_s0);
+        writer.Write(_s1);
+        writer.Write(_s2);
+        writer.Write(_s3);
+        writer.Write(_hasSpareNormal);
+        writer.Write(_spareNormal);
+    }
+
+    /// <summary>Restores a state of <see cref="WriteState"/>: the stream continues exactly where it was.</summary>
+    /// <param name="reader">Where to read.</param>
+    public void ReadState(BinaryReader reader)
+    {
+        ArgumentNullException.ThrowIfNull(reader);
+        _s0 = reader.ReadUInt64();
+        _s1 = reader.ReadUInt64();
+        _s2 = reader.ReadUInt64();
+        _s3 = reader.ReadUInt64();
+        _hasSpareNormal = reader.ReadBoolean();
+        _spareNormal = reader.ReadDouble();
+    }
+
     /// <summary>One step of SplitMix64: advances <paramref name="state"/> and returns the mixed output.</summary>
     /// <param name="state">Generator state, advanced in place.</param>
     /// <returns>The next 64-bit output.</returns>
