@@ -16,7 +16,7 @@ public sealed class MaskedSumsSchemeTests
             Assert.Equal(name, FederationSchemes.FromName(name).Name);
         Assert.IsType<MaskedSumsScheme>(FederationSchemes.FromName(MaskedSumsScheme.SchemeName));
         var e = Assert.Throws<ArgumentException>(() => FederationSchemes.FromName("masked"));
-        Assert.Contains("plain, private-columns or masked-sums", e.Message, StringComparison.Ordinal);
+        Assert.Contains("plain, private-columns, masked-sums, dp or dp-masked-sums", e.Message, StringComparison.Ordinal);
     }
 
     [Fact]
