@@ -62,4 +62,32 @@ public sealed class SweepCommandTests
         Assert.Empty(parsed.Errors);
         Assert.Equal(string.Join(",", FedGrid.Federation.Schemes.FederationSchemes.Names), parsed.GetValue<string>("--scheme"));
     }
+
+    [Fact]
+    public void Dp_sweep_runs_every_noise_and_epsilon_falls_as_the_noise_grows()
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-sweep-dp-" + Guid.NewGuid().ToString("N"));
+        var stdout = new StringWriter();
+        var stderr = new StringWriter();
+        int code = SweepCommand.Run("plain,dp", "1,4", 1, dir, asJson: true, stdout, stderr);
+        try
+        {
+            Assert.True(code == 0, stderr.ToString());
+            using JsonDocument doc = JsonDocument.Parse(stdout.ToString());
+            JsonElement[] rows = doc.RootElement.EnumerateArray().ToArray();
+            Assert.Equal(["plain", "dp", "dp"], rows.Select(r => r.GetProperty("scheme").GetString()));
+            Assert.Equal(JsonValueKind.Null, rows[0].GetProperty("epsilon").ValueKind);
+            Assert.Equal(1, rows[1].GetProperty("noiseMultiplier").GetDouble());
+            Assert.Equal(4, rows[2].GetProperty("noiseMultiplier").GetDouble());
+            double e1 = rows[1].GetProperty("epsilon").GetDouble(), e4 = rows[2].GetProperty("epsilon").GetDouble();
+            Assert.True(double.IsFinite(e1) && double.IsFinite(e4) && e4 > 0, $"ε {e1}, {e4}");
+            Assert.True(e4 < e1, $"ε at z = 4 ({e4}) is not below ε at z = 1 ({e1})");
+            foreach (JsonElement r in rows[1..])
+                Assert.Equal(JsonValueKind.Number, r.GetProperty("savingsCapturedPct").ValueKind);
+            // The noisy partial sums hide base load better than plain's clear ones.
+            Assert.True(rows[2].GetProperty("partialSumsExposureRatio").GetDouble() > rows[0].GetProperty("partialSumsExposureRatio").GetDouble());
+            Assert.True(Directory.Exists(Path.Combine(dir, "dp-z4")));
+        }
+        finally { Directory.Delete(dir, true); }
+    }
 }

@@ -33,6 +33,9 @@ public class TrainCommandTests
                 Assert.True(root.TryGetProperty(field, out var v) && v.ValueKind is JsonValueKind.Number or JsonValueKind.Null, field);
             Assert.Equal(learner, root.GetProperty("learner").GetString());
             Assert.Equal("centralized", root.GetProperty("mode").GetString());
+            // No differential privacy in the centralized mode: the bound is null, not absent.
+            Assert.Equal(JsonValueKind.Null, root.GetProperty("epsilon").ValueKind);
+            Assert.Equal(JsonValueKind.Null, root.GetProperty("delta").ValueKind);
             Assert.Equal(2, root.GetProperty("days").GetInt32());
             Assert.Equal(3UL, root.GetProperty("seed").GetUInt64());
             Assert.Contains(tariff == "real-time" ? "real-time" : "time-of-use", root.GetProperty("tariff").GetString());

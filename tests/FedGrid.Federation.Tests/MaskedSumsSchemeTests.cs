@@ -16,7 +16,7 @@ public sealed class MaskedSumsSchemeTests
             Assert.Equal(name, FederationSchemes.FromName(name).Name);
         Assert.IsType<MaskedSumsScheme>(FederationSchemes.FromName(MaskedSumsScheme.SchemeName));
         var e = Assert.Throws<ArgumentException>(() => FederationSchemes.FromName("masked"));
-        Assert.Contains("plain, private-columns or masked-sums", e.Message, StringComparison.Ordinal);
+        Assert.Contains("plain, private-columns, masked-sums, dp or dp-masked-sums", e.Message, StringComparison.Ordinal);
     }
 
     [Fact]
@@ -37,6 +37,27 @@ public sealed class MaskedSumsSchemeTests
         var fresh = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions { Scheme = ClearScheme.Plain(), Federation = TestRuns.Options(stepsPerRound: 48) }, new RecordingTranscript());
         fresh.Start();
         Assert.False(fresh.Coordinator.Actor.Parameters.SequenceEqual(plain.Coordinator.Actor.Parameters));
+    }
+
+    [Fact]
+    public void WithBusAggregateProjectionInputsTheMaskedModelIsThePlainOneUpToFixedPointRounding()
+    {
+        // Issue 7: bus-aggregate inputs are "combinable with every scheme"; masked sums must still give plain's model.
+        FederatedRunOptions Options(IFederationScheme scheme) => new()
+        {
+            Scheme = scheme,
+            Federation = TestRuns.Options(stepsPerRound: 48),
+            ProjectionForm = new FedGrid.Federation.Protocol.BusAggregateProjectionInputs(),
+        };
+        var plain = new InProcessFederation(TestRuns.Default(), Options(ClearScheme.Plain()), new RecordingTranscript());
+        FederatedRunResult p = plain.Run();
+        var masked = new InProcessFederation(TestRuns.Default(), Options(new MaskedSumsScheme(ClearScheme.Plain())), new RecordingTranscript());
+        FederatedRunResult r = masked.Run();
+        Assert.True(r.AggregatedRounds >= 2);
+        Assert.Equal(p.AggregatedRounds, r.AggregatedRounds);
+        Check(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
+        Check(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
+        Assert.Equal(p.Run.Days[0].Cost, r.Run.Days[0].Cost, 6);
     }
 
     [Fact]

@@ -14,7 +14,7 @@ namespace FedGrid.Cli.Commands;
 
 /// <summary>One trained and audited combination of the sweep.</summary>
 /// <param name="Scheme">Scheme name as given to the train verb.</param>
-/// <param name="NoiseMultiplier">Noise multiplier z given to the train verb, or null for the scheme's own (none).</param>
+/// <param name="NoiseMultiplier">Noise multiplier z of the run (the train verb's default for a dp scheme without --noise), or null for a scheme without noise.</param>
 /// <param name="Epsilon">ε of the run's summary, or null where the summary has none.</param>
 /// <param name="SavingsCapturedPct">Savings captured over the final window, %.</param>
 /// <param name="ViolationSlots">Slots with a limit violation.</param>
@@ -40,7 +40,7 @@ internal static class SweepCommand
             Description = $"comma-separated schemes, any the train verb's federated mode accepts (default: all of them, {string.Join(",", FederationSchemes.Names)})",
             DefaultValueFactory = _ => string.Join(",", FederationSchemes.Names),
         };
-        var noise = new Option<string?>("--noise") { Description = $"comma-separated noise multipliers z, applied to the {DifferentiallyPrivateScheme.SchemeName} scheme (other schemes run once)" };
+        var noise = new Option<string?>("--noise") { Description = $"comma-separated noise multipliers z, applied to the {DifferentiallyPrivateScheme.SchemeName} and {DifferentiallyPrivateScheme.MaskedSchemeName} schemes (other schemes run once; a dp scheme without --noise runs once at z = {DifferentialPrivacySettings.DefaultNoiseMultiplier})" };
         var days = new Option<int>("--days") { Description = $"training days of every run (default {DefaultDays})", DefaultValueFactory = _ => DefaultDays };
         var outDir = new Option<string?>("--out") { Description = "sweep folder (default runs/sweep-<days>d); one run folder per combination inside" };
         var json = new Option<bool>("--json") { Description = "print only the rows as a JSON array on stdout" };
@@ -61,7 +61,7 @@ internal static class SweepCommand
         var combos = new List<(string Scheme, double? Noise)>();
         foreach (string s in schemes.Distinct(StringComparer.Ordinal))
         {
-            if (s == DifferentiallyPrivateScheme.SchemeName && noises.Length > 0) combos.AddRange(noises.Select(z => (s, (double?)z)));
+            if (FederationSchemes.IsDifferentiallyPrivate(s) && noises.Length > 0) combos.AddRange(noises.Select(z => (s, (double?)z)));
             else combos.Add((s, null));
         }
         string dir = Path.GetFullPath(outDir ?? Path.Combine("runs", $"sweep-{days}d"));
@@ -84,7 +84,7 @@ internal static class SweepCommand
             using JsonDocument summary = JsonDocument.Parse(captured.ToString());
             (AuditRun run, AttackResults results, ScoreCard? card) = AuditCommand.Audit(o.OutDir!, priors: true, meter: false, gradientMatching: null, progress);
             AuditCommand.WriteFiles(o.OutDir!, run, results, card, writeReport: true, progress);
-            rows.Add(new SweepRow(s, z, Number(summary.RootElement, "epsilon"), Number(summary.RootElement, "savingsCapturedPct"),
+            rows.Add(new SweepRow(s, z ?? Number(summary.RootElement, "noiseMultiplier"), Number(summary.RootElement, "epsilon"), Number(summary.RootElement, "savingsCapturedPct"),
                 summary.RootElement.GetProperty("violationSlots").GetInt64(), LowestExposure(card, Channel.PartialSums), LowestExposure(card, Channel.Uploads), o.OutDir!));
         }
         File.WriteAllText(Path.Combine(dir, "sweep.csv"), Csv(rows));

@@ -119,6 +119,8 @@ internal static class TrainCommand
         stdout.WriteLine($"Savings captured: {(s.SavingsCapturedPct is { } p ? $"{p:0.0} %" : "n/a")}; peak reduction {s.PeakReductionPct:0.0} %; " +
                          $"90 % of the final savings on day {(s.DaysToNinetyPct?.ToString(System.Globalization.CultureInfo.InvariantCulture) ?? "n/a")}");
         stdout.WriteLine($"Slots with violations: {s.ViolationSlots} (no control {s.NoControlViolationSlots}); projections {s.Projections}");
+        if (s.Epsilon is { } eps)
+            stdout.WriteLine($"Differential privacy: ε = {eps:G4} at δ = {s.Delta:G3} per household (partial sums and uploads, not the projection inputs; a bound under the README's assumptions)");
         stdout.WriteLine($"Run folder: {dir}");
         stdout.WriteLine("  daily.csv  summary.json  convergence.png");
         stdout.WriteLine();

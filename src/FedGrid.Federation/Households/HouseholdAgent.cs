@@ -327,6 +327,9 @@ public sealed class HouseholdAgent
         }
         Load(_actor!, model.ActorParameters, own, "actor");
         Load(_critic!, model.CriticParameters, own, "critic");
+        var (aso, asn) = _actor!.SharedRange();
+        var (cso, csn) = _critic!.SharedRange();
+        _schemeSide!.ModelLoaded(_actor.Parameters.Slice(aso, asn), _critic.Parameters.Slice(cso, csn));
         _hasModel = true;
         _trainer!.ResetOptimisers();
         Phase = HouseholdPhase.Ready;

@@ -176,6 +176,9 @@ public sealed class MaskedSumsScheme : IFederationScheme
         public void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message) =>
             _inner.EncodeUpload(actor, critic, message);
 
+        public void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared) =>
+            _inner.ModelLoaded(actorShared, criticShared);
+
         private static void Fill(Google.Protobuf.Collections.RepeatedField<ulong> target, ReadOnlySpan<ulong> values)
         {
             target.Clear();

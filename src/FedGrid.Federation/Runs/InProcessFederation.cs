@@ -38,6 +38,12 @@ public sealed record FederatedRunOptions
 
     /// <summary>Probability that a selected household's upload is lost (a simulated dropout, drawn from the seed); the round then closes at its deadline.</summary>
     public double UploadDropout { get; init; }
+
+    /// <summary>
+    /// Simulation only: alters household m's upload on its way to the coordinator (a simulated malicious household, for
+    /// testing robust aggregation), or null. Called with the household index and the message before delivery.
+    /// </summary>
+    public Action<int, ParameterUpload>? SimulatedUploadTamper { get; init; }
 }
 
 /// <summary>What a federated run produced.</summary>
@@ -286,6 +292,10 @@ public sealed class InProcessFederation : ICoordinatorOutbox
                     {
                         lost = true;
                         continue;
+                    }
+                    if (_options.SimulatedUploadTamper is { } tamper && r.BodyCase == HouseholdMessage.BodyOneofCase.Upload)
+                    {
+                        tamper(m, r.Upload);
                     }
                     Deliver(r);
                     Drain();

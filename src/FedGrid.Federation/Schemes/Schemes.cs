@@ -58,6 +58,17 @@ public interface IHouseholdSchemeSide
     /// <param name="critic">Critic parameters of the scope.</param>
     /// <param name="message">The outgoing upload; its vectors are cleared and refilled.</param>
     void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message);
+
+    /// <summary>
+    /// Told after the household loaded a broadcast model: its shared parameters as they now stand, the starting point of
+    /// its local training and known to the coordinator (differential privacy noises the update relative to them).
+    /// A wrapping side forwards the call. Default: nothing.
+    /// </summary>
+    /// <param name="actorShared">The actor's shared parameters.</param>
+    /// <param name="criticShared">The critic's shared parameters.</param>
+    void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared)
+    {
+    }
 }
 
 /// <summary>The coordinator's part of a scheme.</summary>
@@ -371,18 +382,34 @@ public sealed class ProtocolException : Exception
 public static class FederationSchemes
 {
     /// <summary>Names of the schemes, in the order they are offered.</summary>
-    public static IReadOnlyList<string> Names { get; } = [ClearScheme.PlainName, ClearScheme.PrivateColumnsName, MaskedSumsScheme.SchemeName];
+    public static IReadOnlyList<string> Names { get; } =
+    [
+        ClearScheme.PlainName, ClearScheme.PrivateColumnsName, MaskedSumsScheme.SchemeName,
+        DifferentiallyPrivateScheme.SchemeName, DifferentiallyPrivateScheme.MaskedSchemeName,
+    ];
+
+    /// <summary>Whether a scheme name adds the differential-privacy layer (and takes its settings).</summary>
+    /// <param name="name">A scheme name.</param>
+    /// <returns>True for <c>dp</c> and <c>dp-masked-sums</c>.</returns>
+    public static bool IsDifferentiallyPrivate(string name) =>
+        name is DifferentiallyPrivateScheme.SchemeName or DifferentiallyPrivateScheme.MaskedSchemeName;
 
     /// <summary>The scheme of a name.</summary>
     /// <param name="name">One of <see cref="Names"/>.</param>
+    /// <param name="aggregator">Creates the coordinator's averaging rule for the uploads (FedAvg when null).</param>
+    /// <param name="privacy">Settings of the DP schemes (defaults when null; ignored by the others).</param>
     /// <returns>The scheme; <c>masked-sums</c> keeps plain's uploads and averaging, so it gives plain's model up to
-    /// fixed-point rounding.</returns>
+    /// fixed-point rounding; <c>dp</c> is the DP layer over private-columns, <c>dp-masked-sums</c> over masked sums
+    /// over private-columns (the coordinator learns only the total of the noisy partial sums).</returns>
     /// <exception cref="ArgumentException">Unknown name.</exception>
-    public static IFederationScheme FromName(string name) => name switch
+    public static IFederationScheme FromName(string name, Func<IUploadAggregator>? aggregator = null, DifferentialPrivacySettings? privacy = null) => name switch
     {
-        ClearScheme.PlainName => ClearScheme.Plain(),
-        ClearScheme.PrivateColumnsName => ClearScheme.PrivateColumns(),
-        MaskedSumsScheme.SchemeName => new MaskedSumsScheme(ClearScheme.Plain()),
+        ClearScheme.PlainName => ClearScheme.Plain(aggregator),
+        ClearScheme.PrivateColumnsName => ClearScheme.PrivateColumns(aggregator),
+        MaskedSumsScheme.SchemeName => new MaskedSumsScheme(ClearScheme.Plain(aggregator)),
+        DifferentiallyPrivateScheme.SchemeName => new DifferentiallyPrivateScheme(ClearScheme.PrivateColumns(aggregator), privacy ?? new()),
+        DifferentiallyPrivateScheme.MaskedSchemeName =>
+            new DifferentiallyPrivateScheme(new MaskedSumsScheme(ClearScheme.PrivateColumns(aggregator)), privacy ?? new()),
         _ => throw new ArgumentException($"unknown scheme '{name}'; use {NameList()}", nameof(name)),
     };
 

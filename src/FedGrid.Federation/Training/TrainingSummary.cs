@@ -14,6 +14,7 @@ namespace FedGrid.Federation.Training;
 /// <item><c>daysToNinetyPct</c>: first day (1-based) whose trailing 7-day mean savings against no control
 /// (days d−6..d, fewer at the start) reach 90 % of the final savings; null when the final savings are not positive.</item>
 /// </list>
+/// <c>epsilon</c> and <c>delta</c>: the run's differential-privacy bound per household (null where no DP is applied).
 /// The federated mode adds its own fields through <see cref="Extra"/>.
 /// </summary>
 /// <param name="Mode">"centralized" or another mode's name.</param>
@@ -48,6 +49,12 @@ public sealed record TrainingSummary(string Mode, string Learner, string Tariff,
 
     /// <summary>Share of the final savings that <see cref="DaysToNinetyPct"/> waits for.</summary>
     public const double NinetyPct = 0.9;
+
+    /// <summary>ε of the run's (ε, δ) differential-privacy bound per household, or null where no DP is applied (written as <c>epsilon</c>).</summary>
+    public double? Epsilon { get; init; }
+
+    /// <summary>δ of that bound, or null where no DP is applied (written as <c>delta</c>).</summary>
+    public double? Delta { get; init; }
 
     /// <summary>Further fields a mode adds (written after the common ones, in order); numbers, strings or booleans.</summary>
     public IReadOnlyList<KeyValuePair<string, object>> Extra { get; init; } = [];
@@ -148,6 +155,9 @@ public sealed record TrainingSummary(string Mode, string Learner, string Tariff,
         writer.WriteNumber("projectionSolverFailures", ProjectionTrouble.SolverFailures);
         writer.WriteNumber("decisionSteps", DecisionSteps);
         writer.WriteNumber("trainingSeconds", Math.Round(TrainingSeconds, 3));
+        WriteNullable(writer, "epsilon", Epsilon, 4);
+        if (Delta is { } delta) writer.WriteNumber("delta", delta);
+        else writer.WriteNull("delta");
         foreach (var (key, value) in Extra)
         {
             switch (value)
