@@ -1,18 +1,20 @@
 using BenchmarkDotNet.Attributes;
+using FedGrid.Federation.Training;
 using FedGrid.Learning.ActorCritic;
 using FedGrid.Learning.Randomness;
 
 namespace FedGrid.Bench;
 
 /// <summary>
-/// The learner's hot paths at the default network size (actor and critic [64, 64] tanh) with 32 households of 6
-/// state features and one setpoint each. Goals: one household decision step (partial sums + split forward + sampling)
+/// The learner's hot paths with the training defaults (<see cref="TrainingDefaults.ActorCritic"/>: actor and critic
+/// [64, 64] tanh, one-step updates) and 32 households of <see cref="HouseholdControlTask.FeaturesPerHousehold"/> state
+/// features and one setpoint each. Goals: one household decision step (partial sums + split forward + sampling)
 /// at most 20 µs and 0 B allocated; training throughput in centralised decision steps per second.
 /// </summary>
 [MemoryDiagnoser]
 public class LearningBenchmarks
 {
-    private const int Households = 32, StateSize = 6;
+    private const int Households = 32, StateSize = HouseholdControlTask.FeaturesPerHousehold;
     private ActorCriticLearner _learner = null!;
     private float[] _own = null!, _others = null!, _partial = null!, _lower = null!, _upper = null!, _action = null!;
     private float[] _state = null!, _next = null!, _lowerAll = null!, _upperAll = null!, _actions = null!, _costs = null!;
@@ -20,7 +22,7 @@ public class LearningBenchmarks
     [GlobalSetup]
     public void Setup()
     {
-        _learner = new ActorCriticLearner(Households, StateSize, 1, new ActorCriticOptions { RolloutSteps = 8 });
+        _learner = new ActorCriticLearner(Households, StateSize, 1, TrainingDefaults.ActorCritic);
         var rng = new LearningRandom(1);
         _own = Fill(rng, StateSize);
         _others = Fill(rng, 64);
@@ -47,8 +49,7 @@ public class LearningBenchmarks
 
     /// <summary>
     /// Centralised training, 32 households: one decision step for all households (full forward, sampling) plus its
-    /// share of the n-step update (8 steps per update; each invocation runs one whole rollout and its update).
-    /// Reported per decision step.
+    /// update (one-step TD, the default: an update every step); each invocation runs 8 steps. Reported per decision step.
     /// </summary>
     [Benchmark(OperationsPerInvoke = 8)]
     public long CentralisedTrainingStep()

@@ -39,6 +39,8 @@ public class TrainCommandTests
             Assert.Equal(2, root.GetProperty("days").GetInt32());
             Assert.Equal(3UL, root.GetProperty("seed").GetUInt64());
             Assert.Contains(tariff == "real-time" ? "real-time" : "time-of-use", root.GetProperty("tariff").GetString());
+            Assert.Equal(learner == "actor-critic", root.TryGetProperty("warmStartDays", out var warm));
+            if (learner == "actor-critic") Assert.Equal(1, warm.GetInt32());
             Assert.Contains($"train: {learner}: day 2/2", err);
             Assert.Equal(output.Trim(), File.ReadAllText(Path.Combine(dir, "summary.json")).Trim());
             string[] daily = File.ReadAllLines(Path.Combine(dir, "daily.csv"));
@@ -73,6 +75,16 @@ public class TrainCommandTests
     public void Bad_options_are_user_errors(string mode, string learner, string? tariff, int days, string message)
     {
         var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, learner, Tariff: tariff, Days: days)));
+        Assert.Contains(message, e.Message);
+    }
+
+    [Theory]
+    [InlineData("centralized", "q-learning", 1, "--warm-start-days applies to --mode centralized --learner actor-critic only")]
+    [InlineData("federated", "actor-critic", 1, "--warm-start-days applies to --mode centralized --learner actor-critic only")]
+    [InlineData("centralized", "actor-critic", -1, "--warm-start-days must be 0 or more, got -1")]
+    public void Warm_start_days_only_for_centralized_actor_critic(string mode, string learner, int warm, string message)
+    {
+        var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, learner, Days: 2, WarmStartDays: warm)));
         Assert.Contains(message, e.Message);
     }
 }

@@ -21,13 +21,37 @@ public class TrainerAndSummaryTests
         TrainingRun c = new CentralizedTrainer(TwoDays, new TrainingOptions(kind, Seed: 6)).Train();
         Assert.Equal([1, 2], progress);
         Assert.Equal(a.Days.ToArray(), b.Days.ToArray());
-        Assert.NotEqual(a.Days[0].Cost, c.Days[0].Cost);
+        // Actor-critic's first day is the price rule's (warm start), the same for every learner seed; the second is its own.
+        Assert.NotEqual(a.Days[^1].Cost, c.Days[^1].Cost);
         Assert.Equal(2 * 96, a.DecisionSteps);
         Assert.Equal(LearnerNames.Of(kind), a.Learner);
         Assert.True(a.Updates > 0);
         // Online training keeps the feeder inside its limits (projection every slot) unless a projection is on record as failed.
         foreach (DayMetrics d in a.Days)
             Assert.True(d.ViolationSlots <= d.ProjectionTrouble.Unverified + d.ProjectionTrouble.Infeasible + d.ProjectionTrouble.SolverFailures);
+    }
+
+    [Fact]
+    public void Actor_critic_warm_start_runs_the_rule_on_its_first_day_then_learns()
+    {
+        CentralizedTrainer Trainer(ulong seed, int? warm) => new(TwoDays, new TrainingOptions(LearnerKind.ActorCritic, seed, WarmStartDays: warm));
+        CentralizedTrainer a = Trainer(5, null), b = Trainer(6, 1), none = Trainer(5, 0), rule = Trainer(5, 2);
+        TrainingRun ra = a.Train(), rb = b.Train(), rn = none.Train(), rr = rule.Train();
+        // Day 1 is the rule's whatever the learner's seed; with the rule on both days there is nothing left to learn.
+        Assert.Equal(ra.Days[0], rb.Days[0]);
+        Assert.Equal(ra.Days[0], rr.Days[0]);
+        Assert.NotEqual(ra.Days[0].Cost, rn.Days[0].Cost);
+        Assert.Equal(0, rr.Updates);
+        Assert.Null(rule.WarmStartLoss);
+        Assert.Equal(96, ra.Updates); // one-step updates on day 2 only
+        Assert.Null(none.WarmStartLoss);
+        // The clone fits the rule's bang-bang setpoints (pre-squash targets ±2.5) far better than the untrained policy's
+        // near-zero means would (mean squared error 6.25).
+        Assert.InRange(a.WarmStartLoss!.Value.ActorLoss, 0, 0.5);
+        Assert.True(double.IsFinite(a.WarmStartLoss!.Value.CriticLoss));
+        Assert.Equal(TrainingDefaults.WarmStartedActorCritic.ActorLearningRate, a.ActorCritic!.Options.ActorLearningRate);
+        Assert.Equal(TrainingDefaults.ActorCritic.ActorLearningRate, none.ActorCritic!.Options.ActorLearningRate);
+        Assert.Throws<ArgumentOutOfRangeException>(() => Trainer(5, -1).Train());
     }
 
     [Fact]

@@ -238,6 +238,59 @@ public sealed class ActorCriticTests(Xunit.Abstractions.ITestOutputHelper log)
     }
 
     [Fact]
+    public void WarmStartClonesTheDemonstratorAndEvaluatesItsCost()
+    {
+        // A demonstrator on 2 agents, boxes [−1, 1] and [0, 2]: agent 0 at its upper bound when its first feature is
+        // positive, else at its lower bound; agent 1 always at 1.5 (u* = atanh(0.5)). Every cost is 1, so with γ = 0.5 and
+        // the sequence bootstrapped by the critic itself every return is the geometric series 1/(1 − γ) = 2.
+        const int rows = 64;
+        var rng = new LearningRandom(11);
+        float[] states = TestData.Vector(rng, rows * 4, 1f), lower = new float[rows * 2], upper = new float[rows * 2], actions = new float[rows * 2];
+        float[] costs = Enumerable.Repeat(1f, rows * 2).ToArray();
+        for (int i = 0; i < rows; i++)
+        {
+            (lower[2 * i], upper[2 * i], lower[2 * i + 1], upper[2 * i + 1]) = (-1f, 1f, 0f, 2f);
+            actions[2 * i] = states[4 * i] > 0 ? 1f : -1f;
+            actions[2 * i + 1] = 1.5f;
+        }
+        var learner = new ActorCriticLearner(2, 2, 1, Options with { HiddenSizes = [32, 32] });
+        var (actorLoss, criticLoss) = learner.WarmStart(states, lower, upper, actions, costs, states.AsSpan(0, 4), epochs: 400, batchSize: 16,
+            edge: 2.5f, learningRate: 3e-3);
+        log.WriteLine($"warm start: actor mse {actorLoss:E2} (pre-squash), critic mse {criticLoss:E2}");
+        float[] a = new float[2], v = new float[2];
+        int agree = 0;
+        for (int i = 0; i < rows; i++)
+        {
+            ReadOnlySpan<float> s = states.AsSpan(4 * i, 4);
+            learner.Act(s, lower.AsSpan(2 * i, 2), upper.AsSpan(2 * i, 2), a, explore: false);
+            if (Math.Abs(a[0] - actions[2 * i]) < 0.1f) agree++;
+            Assert.Equal(1.5f, a[1], 0.05f);
+            learner.Values(s, v);
+            Assert.Equal(2f, v[0], 0.1f);
+            Assert.Equal(2f, v[1], 0.1f);
+        }
+        Assert.True(agree >= rows - 2, $"{agree} of {rows} bang-bang actions within 0.1 of the demonstrator's");
+        // The warm start made no reinforcement update and left the step sizes as configured: the next update equals a
+        // fresh learner's from the same parameters (both optimisers were reset).
+        Assert.Equal(0, learner.UpdateCount);
+        var fresh = new ActorCriticLearner(2, 2, 1, Options with { HiddenSizes = [32, 32] });
+        fresh.Actor.LoadParameters(learner.Actor.Parameters);
+        fresh.Critic.LoadParameters(learner.Critic.Parameters);
+        foreach (ActorCriticLearner l in new[] { learner, fresh })
+        {
+            for (int t = 0; t < Options.RolloutSteps; t++)
+            {
+                l.Act(states.AsSpan(4 * t, 4), lower.AsSpan(0, 2), upper.AsSpan(0, 2), a, explore: false);
+                l.Record(costs.AsSpan(0, 2), states.AsSpan(4 * t + 4, 4), done: false);
+            }
+        }
+        Assert.True(learner.Actor.Parameters.SequenceEqual(fresh.Actor.Parameters));
+        Assert.True(learner.Critic.Parameters.SequenceEqual(fresh.Critic.Parameters));
+        Assert.Throws<ArgumentException>(() => learner.WarmStart(states, lower, upper, actions, costs.AsSpan(1), [], 1, 16, 2.5f, 1e-3));
+        Assert.Throws<ArgumentOutOfRangeException>(() => learner.WarmStart(states, lower, upper, actions, costs, [], 1, 16, 0f, 1e-3));
+    }
+
+    [Fact]
     public void OneStepTdUpdatesEveryStep()
     {
         var task = new TrackingTask(agents: 1, steps: 10);

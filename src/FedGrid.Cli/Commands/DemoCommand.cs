@@ -25,7 +25,7 @@ internal static class DemoCommand
         "a stated threat model and data, not a legal compliance finding.";
 
     /// <summary>Staggered restart of the rule after the peak: up to 3 h (12 slots).</summary>
-    public const int RuleReleaseSpreadSlots = 12;
+    public const int RuleReleaseSpreadSlots = PriceThresholdPolicy.DefaultReleaseSpreadSlots;
 
     public static Command Create()
     {

@@ -10,7 +10,7 @@ namespace FedGrid.Cli.Commands;
 
 /// <summary>Options of <c>fedgrid train</c>; null values take the defaults (or, with a scenario file, the file's).</summary>
 internal sealed record TrainOptions(string Mode, string Learner, string? ScenarioPath = null, string? Tariff = null, int? Days = null,
-    ulong? Seed = null, string? OutDir = null, bool Json = false, FederatedTrainOptions? Federated = null);
+    ulong? Seed = null, string? OutDir = null, bool Json = false, FederatedTrainOptions? Federated = null, int? WarmStartDays = null);
 
 /// <summary>What a training mode hands back to the command for writing the run folder.</summary>
 /// <param name="Run">The learner's run.</param>
@@ -23,7 +23,7 @@ internal sealed record TrainOutcome(TrainingRun Run, TrainingSummary Summary, IR
 
 /// <summary>Everything a training mode gets from the command line.</summary>
 internal sealed record TrainContext(Scenario Scenario, LearnerKind Learner, ulong Seed, string Folder, TextWriter Progress,
-    FederatedTrainOptions? Federated = null);
+    FederatedTrainOptions? Federated = null, int? WarmStartDays = null);
 
 /// <summary>
 /// <c>fedgrid train --mode centralized --learner actor-critic|q-learning|double-q</c>: trains a learner on the
@@ -53,14 +53,19 @@ internal static class TrainCommand
         var seed = new Option<ulong?>("--seed") { Description = $"seed of the households, their data and the learner (default {DefaultScenario.DefaultSeed})" };
         var outDir = new Option<string?>("--out") { Description = "run folder (default runs/train-<mode>-<learner>-<tariff>-s<seed>-<days>d)" };
         var json = new Option<bool>("--json") { Description = "print only the summary as JSON on stdout" };
+        var warm = new Option<int?>("--warm-start-days")
+        {
+            Description = $"centralized actor-critic: days the price rule acts before the learner clones it and takes over, 0 = none (default {TrainingDefaults.WarmStartDays})",
+        };
         var (fedOptions, readFed) = TrainFederated.CreateOptions();
         var cmd = new Command("train", "Train a demand-response learner on the default scenario (or a scenario file) with the safety projection every slot; compare it with no control and the daily optimum on the same days.")
         {
-            mode, learner, scenario, tariff, days, seed, outDir, json,
+            mode, learner, scenario, tariff, days, seed, outDir, json, warm,
         };
         foreach (Option o in fedOptions) cmd.Options.Add(o);
         cmd.SetAction(parse => Run(new TrainOptions(parse.GetValue(mode)!, parse.GetValue(learner)!, parse.GetValue(scenario), parse.GetValue(tariff),
-            parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json), readFed(parse)), Console.Out, Console.Error));
+            parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json), readFed(parse),
+            parse.GetValue(warm)), Console.Out, Console.Error));
         return cmd;
     }
 
@@ -76,6 +81,9 @@ internal static class TrainCommand
         TrainFederated.Validate(options);
         if (options.Days is < 1 or > 366)
             throw new UserInputException($"--days must be between 1 and 366, got {options.Days}");
+        if (options.WarmStartDays is { } w && (w < 0 || options.Mode != "centralized" || learner != LearnerKind.ActorCritic))
+            throw new UserInputException(w < 0 ? $"--warm-start-days must be 0 or more, got {w}"
+                : "--warm-start-days applies to --mode centralized --learner actor-critic only");
         if (options.ScenarioPath is not null && options.Days is not null)
             throw new UserInputException("--scenario takes its days from the file: drop --days");
 
@@ -96,7 +104,7 @@ internal static class TrainCommand
             throw new UserInputException($"--out: cannot create the run folder '{dir}': {e.Message}");
         }
 
-        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated));
+        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated, options.WarmStartDays));
         var files = new List<KeyValuePair<string, string>> { new("folder", dir), new("daily", "daily.csv"), new("plot", "convergence.png") };
         files.AddRange(outcome.ExtraFiles);
         byte[] json = RunFolder.Write(dir, outcome.Run.Days, outcome.Summary, files, DemoCommand.Cautions);
@@ -144,11 +152,13 @@ internal static class TrainCommand
     {
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         var (noControl, oracle) = Baselines(c);
-        var trainer = new CentralizedTrainer(c.Scenario, new TrainingOptions(c.Learner, c.Seed));
+        var trainer = new CentralizedTrainer(c.Scenario, new TrainingOptions(c.Learner, c.Seed, WarmStartDays: c.WarmStartDays));
         string name = LearnerNames.Of(c.Learner);
         TrainingRun run = trainer.Train(d => c.Progress.WriteLine(
             FormattableString.Invariant($"train: {name}: day {d.Day}/{days} cost {d.Cost:0.00} $ (no control {noControl[d.Day - 1].Cost:0.00}) peak {d.PeakKw:0.0} kW projections {d.Projections}")));
         var summary = TrainingSummary.Create("centralized", run, noControl, oracle, c.Scenario.Tariff.Name, c.Scenario.Name, c.Scenario.Households.Length, c.Seed);
+        if (c.Learner == LearnerKind.ActorCritic)
+            summary = summary with { Extra = [new("warmStartDays", Math.Min(days, c.WarmStartDays ?? TrainingDefaults.WarmStartDays))] };
         return new TrainOutcome(run, summary, noControl, oracle, []);
     }
 

@@ -1,6 +1,9 @@
 using System.Collections.Immutable;
 using System.Diagnostics;
+using FedGrid.Households;
 using FedGrid.Households.Scenarios;
+using FedGrid.Households.Simulation;
+using FedGrid.Households.Tariffs;
 using FedGrid.Learning.ActorCritic;
 using FedGrid.Learning.Randomness;
 using FedGrid.Learning.Tabular;
@@ -46,8 +49,13 @@ public static class LearnerNames
 /// <param name="ActorCritic">Actor-critic settings (its own seed is replaced by one derived from <paramref name="Seed"/>).</param>
 /// <param name="Tabular">Tabular settings (seed replaced likewise; a null ε schedule length is fitted to the budget).</param>
 /// <param name="Task">Adapter settings (projection on by default).</param>
+/// <param name="WarmStartDays">
+/// Actor-critic only: days at the start of the horizon on which the price rule (<see cref="PriceThresholdPolicy"/>)
+/// acts while the learner watches, before its warm start (<see cref="ActorCriticLearner.WarmStart"/>); those days'
+/// figures are the rule's. Null: <see cref="TrainingDefaults.WarmStartDays"/>; 0: none.
+/// </param>
 public sealed record TrainingOptions(LearnerKind Learner, ulong Seed = 1, ActorCriticOptions? ActorCritic = null, TabularOptions? Tabular = null,
-    HouseholdTaskOptions? Task = null);
+    HouseholdTaskOptions? Task = null, int? WarmStartDays = null);
 
 /// <summary>The settings this project tuned on the default scenario (60 days); see the README "Training" section.</summary>
 public static class TrainingDefaults
@@ -82,6 +90,44 @@ public static class TrainingDefaults
         if (options.Learner != LearnerKind.ActorCritic) return HouseholdTaskOptions.Default;
         ActorCriticOptions ac = options.ActorCritic ?? ActorCritic;
         return new HouseholdTaskOptions(ShapingDiscount: ac.Gamma);
+    }
+
+    /// <summary>
+    /// Actor-critic after a warm start (<see cref="WarmStartDays"/> &gt; 0 and no <see cref="TrainingOptions.ActorCritic"/>):
+    /// <see cref="ActorCritic"/> with the actor's step at 1e-4, so that the reinforcement updates refine the cloned rule
+    /// instead of overwriting it (with 1e-3 the cloned policy fell apart within two weeks; see the README "Training").
+    /// </summary>
+    public static ActorCriticOptions WarmStartedActorCritic { get; } = ActorCritic with { ActorLearningRate = 1e-4 };
+
+    /// <summary>Days of the price rule before the actor-critic's warm start (see <see cref="TrainingOptions.WarmStartDays"/>).</summary>
+    public const int WarmStartDays = 1;
+
+    /// <summary>Passes of the warm start over the rule's transitions.</summary>
+    public const int WarmStartEpochs = 50;
+
+    /// <summary>Adam step size of the warm start.</summary>
+    public const double WarmStartLearningRate = 1e-3;
+
+    /// <summary>Rows per minibatch of the warm start.</summary>
+    public const int WarmStartBatch = 16;
+
+    /// <summary>Cap on the pre-squash targets of the warm start (tanh 2.5 ≈ 0.987: an action on its bound is cloned 0.7 % inside it).</summary>
+    public const float WarmStartEdge = 2.5f;
+
+    /// <summary>
+    /// The price rule's threshold from public information only: a time-of-use tariff's peak price, otherwise the 80th
+    /// percentile of the public forecast (<see cref="HouseholdControlTask.PublicForecast"/>) over the first day (the demo's
+    /// rule takes it over the realised prices of the whole horizon, which the trainer does not know).
+    /// </summary>
+    /// <param name="tariff">The tariff.</param>
+    /// <param name="slots">Slots of the horizon.</param>
+    public static double RuleThreshold(ITariff tariff, int slots)
+    {
+        ArgumentNullException.ThrowIfNull(tariff);
+        if (tariff is TimeOfUseTariff tou) return tou.HighestPrice;
+        var forecast = new double[Math.Min(slots, SlotCalendar.SlotsPerDay)];
+        for (int t = 0; t < forecast.Length; t++) forecast[t] = HouseholdControlTask.PublicForecast(tariff, t);
+        return PriceThresholdPolicy.ThresholdFor(forecast);
     }
 
     /// <summary>Tabular: γ = 0.95, ε from 1 to 0.05 over the first third of the budget, α = 1/(1+n)^0.6 per visit count.</summary>
@@ -146,6 +192,12 @@ public sealed class CentralizedTrainer
     /// <summary>The adapter the learner runs on.</summary>
     public HouseholdControlTask Task { get; }
 
+    /// <summary>
+    /// The actor's mean squared pre-squash error and the critic's mean squared error of the warm start's last pass, or
+    /// null when there was none (see <see cref="ActorCriticLearner.WarmStart"/>).
+    /// </summary>
+    public (double ActorLoss, double CriticLoss)? WarmStartLoss { get; private set; }
+
     /// <summary>The actor-critic after <see cref="Train"/> (null for the tabular learners).</summary>
     public ActorCriticLearner? ActorCritic { get; private set; }
 
@@ -170,7 +222,10 @@ public sealed class CentralizedTrainer
 
     private (long Steps, long Updates) RunActorCritic(Action<DayMetrics> onDay)
     {
-        ActorCriticOptions o = (Options.ActorCritic ?? TrainingDefaults.ActorCritic) with { Seed = LearningRandom.DeriveSeed(Options.Seed, 0xAC) };
+        int warmDays = Options.WarmStartDays ?? TrainingDefaults.WarmStartDays;
+        ArgumentOutOfRangeException.ThrowIfNegative(warmDays, nameof(TrainingOptions.WarmStartDays));
+        ActorCriticOptions o = (Options.ActorCritic ?? (warmDays > 0 ? TrainingDefaults.WarmStartedActorCritic : TrainingDefaults.ActorCritic))
+            with { Seed = LearningRandom.DeriveSeed(Options.Seed, 0xAC) };
         HouseholdControlTask task = Task;
         var learner = new ActorCriticLearner(task.AgentCount, task.StateSizePerAgent, 1, o);
         ActorCritic = learner;
@@ -179,6 +234,40 @@ public sealed class CentralizedTrainer
         task.Reset(Options.Seed);
         task.Observe(state);
         long steps = 0, updates = 0;
+        if (warmDays > 0)
+        {
+            // The rule acts on the first days (its figures are those days' online figures); the learner then clones it
+            // and evaluates it on exactly those transitions.
+            int rows = Math.Min(warmDays, task.DayCount) * SlotCalendar.SlotsPerDay;
+            float[] states = new float[rows * s], lows = new float[rows * n], ups = new float[rows * n], acts = new float[rows * n],
+                stepCosts = new float[rows * n];
+            double[] setpoints = new double[n];
+            var rule = new PriceThresholdPolicy(TrainingDefaults.RuleThreshold(_scenario.Tariff, task.Environment.SlotCount),
+                PriceThresholdPolicy.DefaultReleaseSpreadSlots);
+            for (int r = 0; r < rows; r++)
+            {
+                task.GetBounds(lower, upper);
+                rule.Decide(task.Environment, setpoints);
+                for (int m = 0; m < n; m++) actions[m] = Math.Clamp((float)setpoints[m], lower[m], upper[m]);
+                state.CopyTo(states, r * s);
+                lower.CopyTo(lows, r * n);
+                upper.CopyTo(ups, r * n);
+                actions.CopyTo(acts, r * n);
+                bool dayOver = task.Step(actions, costs);
+                costs.CopyTo(stepCosts, r * n);
+                steps++;
+                bool end = task.HorizonOver;
+                if (!end) task.Observe(state);
+                if (dayOver)
+                {
+                    onDay(task.LastDay!);
+                    if (end) return (steps, updates);
+                    task.NextDay();
+                }
+            }
+            WarmStartLoss = learner.WarmStart(states, lows, ups, acts, stepCosts, state, TrainingDefaults.WarmStartEpochs,
+                TrainingDefaults.WarmStartBatch, TrainingDefaults.WarmStartEdge, TrainingDefaults.WarmStartLearningRate);
+        }
         while (true)
         {
             task.GetBounds(lower, upper);

@@ -58,9 +58,21 @@ public sealed class PriceThresholdPolicy : IDemandResponsePolicy
         if (tariff is Tariffs.TimeOfUseTariff tou) return tou.HighestPrice;
         var prices = new double[slots];
         for (int t = 0; t < slots; t++) prices[t] = tariff.PriceAt(t);
-        Array.Sort(prices);
-        return prices[(int)Math.Floor(0.8 * (slots - 1))];
+        return ThresholdFor(prices);
     }
+
+    /// <summary>The rule's threshold for a list of prices (e.g. a forecast): their 80th percentile (the lower of the two neighbours).</summary>
+    /// <param name="prices">The prices, $ per kWh (not changed).</param>
+    public static double ThresholdFor(ReadOnlySpan<double> prices)
+    {
+        if (prices.IsEmpty) throw new ArgumentException("At least one price is needed.", nameof(prices));
+        double[] sorted = prices.ToArray();
+        Array.Sort(sorted);
+        return sorted[(int)Math.Floor(0.8 * (sorted.Length - 1))];
+    }
+
+    /// <summary>The staggered release the demo and the training warm start use: up to 3 h (12 slots).</summary>
+    public const int DefaultReleaseSpreadSlots = 12;
 
     /// <summary>Price from which load is held at minimum, $ per kWh.</summary>
     public double ThresholdPerKwh { get; }

@@ -326,6 +326,143 @@ public sealed class ActorCriticLearner
         return results;
     }
 
+    /// <summary>
+    /// Warm start from a demonstrator's transitions (behaviour cloning for the actor, policy evaluation for the
+    /// critic), e.g. a rule that ran the first day: <paramref name="epochs"/> passes over the rows in a seeded shuffled
+    /// order, in minibatches of <paramref name="batchSize"/> rows, one Adam step of each network per minibatch, then both
+    /// optimisers are reset (<see cref="ResetOptimisers"/>) so that the reinforcement updates start with fresh moments.
+    /// The actor's means are fitted by least squares to the pre-squash values u* = atanh(2(a − lo)/(hi − lo) − 1) of the
+    /// demonstrated actions, |u*| capped at <paramref name="edge"/> (an action on its bound has no finite u*); heads
+    /// with an empty box do not contribute, and the log-stds are left as they are. The critic is fitted to the
+    /// discounted returns of the demonstrator's scaled costs over the rows (row i's return bootstrapped by the critic
+    /// at <paramref name="bootstrapState"/> after the last row, recomputed every pass; empty = the sequence ended).
+    /// </summary>
+    /// <param name="states">Full states of the rows (rows · M · state size), in time order.</param>
+    /// <param name="lower">Lower bounds of the rows (rows · M · k).</param>
+    /// <param name="upper">Upper bounds of the rows (rows · M · k).</param>
+    /// <param name="actions">The demonstrated actions (rows · M · k).</param>
+    /// <param name="costs">Each agent's cost of each row (rows · M), unscaled like <see cref="Record"/>'s.</param>
+    /// <param name="bootstrapState">The state after the last row, or empty.</param>
+    /// <param name="epochs">Passes over the rows (≥ 1).</param>
+    /// <param name="batchSize">Rows per minibatch (≥ 1).</param>
+    /// <param name="edge">Largest |u*| (&gt; 0).</param>
+    /// <param name="learningRate">Adam step size of both networks during the warm start (their own step sizes are restored after it).</param>
+    /// <returns>The actor's mean squared pre-squash error and the critic's mean squared error (per head) of the last pass.</returns>
+    public (double ActorLoss, double CriticLoss) WarmStart(ReadOnlySpan<float> states, ReadOnlySpan<float> lower, ReadOnlySpan<float> upper,
+        ReadOnlySpan<float> actions, ReadOnlySpan<float> costs, ReadOnlySpan<float> bootstrapState, int epochs, int batchSize, float edge,
+        double learningRate)
+    {
+        int m = AgentCount, k = ActionSizePerAgent, s = m * StateSizePerAgent, a = m * k;
+        if (states.Length == 0 || states.Length % s != 0)
+        {
+            throw new ArgumentException($"States need a positive multiple of {s} floats.", nameof(states));
+        }
+        int rows = states.Length / s;
+        if (lower.Length != rows * a || upper.Length != rows * a || actions.Length != rows * a || costs.Length != rows * m)
+        {
+            throw new ArgumentException($"{rows} rows need {rows * a} bounds and actions and {rows * m} costs.");
+        }
+        if (bootstrapState.Length != 0 && bootstrapState.Length != s)
+        {
+            throw new ArgumentException($"The bootstrap state needs {s} floats or none.", nameof(bootstrapState));
+        }
+        ArgumentOutOfRangeException.ThrowIfLessThan(epochs, 1);
+        ArgumentOutOfRangeException.ThrowIfLessThan(batchSize, 1);
+        if (!(edge > 0))
+        {
+            throw new ArgumentOutOfRangeException(nameof(edge), "The cap on |u*| must be positive.");
+        }
+        ArgumentOutOfRangeException.ThrowIfNegativeOrZero(learningRate);
+        _actorOptimiser.LearningRate = learningRate;
+        _criticOptimiser.LearningRate = learningRate;
+        float limit = MathF.Tanh(edge);
+        var targetU = new float[rows * a];
+        var active = new bool[rows * a];
+        for (int i = 0; i < targetU.Length; i++)
+        {
+            float width = upper[i] - lower[i];
+            active[i] = width > 1e-6f;
+            float y = active[i] ? Math.Clamp(2f * (actions[i] - lower[i]) / width - 1f, -limit, limit) : 0f;
+            targetU[i] = MathF.Atanh(y);
+        }
+        var targets = new float[rows * m];
+        var order = new int[rows];
+        for (int i = 0; i < rows; i++)
+        {
+            order[i] = i;
+        }
+        var shuffle = new LearningRandom(LearningRandom.DeriveSeed(_options.Seed, 4));
+        float gamma = (float)_options.Gamma;
+        double actorLoss = 0, criticLoss = 0;
+        for (int epoch = 0; epoch < epochs; epoch++)
+        {
+            if (bootstrapState.Length == 0)
+            {
+                Array.Clear(_returns);
+            }
+            else
+            {
+                Critic.Forward(bootstrapState, _criticWorkspace, _returns);
+            }
+            for (int i = rows - 1; i >= 0; i--)
+            {
+                for (int h = 0; h < m; h++)
+                {
+                    _returns[h] = (float)(costs[i * m + h] * _options.CostScale) + gamma * _returns[h];
+                    targets[i * m + h] = _returns[h];
+                }
+            }
+            for (int i = rows - 1; i > 0; i--)
+            {
+                int j = shuffle.NextInt(i + 1);
+                (order[i], order[j]) = (order[j], order[i]);
+            }
+            actorLoss = criticLoss = 0;
+            for (int start = 0; start < rows; start += batchSize)
+            {
+                int end = Math.Min(rows, start + batchSize);
+                float weight = 1f / (end - start);
+                Array.Clear(_actorGradient);
+                Array.Clear(_criticGradient);
+                for (int b = start; b < end; b++)
+                {
+                    int i = order[b];
+                    ReadOnlySpan<float> state = states.Slice(i * s, s);
+                    Critic.Forward(state, _criticWorkspace, _values);
+                    criticLoss += ActorCriticLoss.Critic(_values, targets.AsSpan(i * m, m), weight, _valueGradient) * (end - start) / rows;
+                    Critic.Backward(_criticWorkspace, _valueGradient, _criticGradient);
+
+                    Actor.Forward(state, _actorWorkspace, _actorOutput);
+                    Array.Clear(_actorOutputGradient);
+                    for (int h = 0; h < m; h++)
+                    {
+                        for (int j = 0; j < k; j++)
+                        {
+                            int idx = i * a + h * k + j;
+                            if (!active[idx])
+                            {
+                                continue;
+                            }
+                            int meanIndex = 2 * k * h + j;
+                            float d = _actorOutput[meanIndex] - targetU[idx];
+                            _actorOutputGradient[meanIndex] = weight * d;
+                            actorLoss += 0.5 * d * d / rows;
+                        }
+                    }
+                    Actor.Backward(_actorWorkspace, _actorOutputGradient, _actorGradient);
+                }
+                GradientClipping.ClipGlobalNorm(_criticGradient, _options.MaxGradientNorm);
+                GradientClipping.ClipGlobalNorm(_actorGradient, _options.MaxGradientNorm);
+                _criticOptimiser.Step(Critic.Parameters, _criticGradient);
+                _actorOptimiser.Step(Actor.Parameters, _actorGradient);
+            }
+        }
+        _actorOptimiser.LearningRate = _options.ActorLearningRate;
+        _criticOptimiser.LearningRate = _options.CriticLearningRate;
+        ResetOptimisers();
+        return (2 * actorLoss / m / k, 2 * criticLoss / m);
+    }
+
     private void SampleHead(ReadOnlySpan<float> head, ReadOnlySpan<float> lower, ReadOnlySpan<float> upper,
         Span<float> actions, Span<float> preSquash, bool explore)
     {
