@@ -99,6 +99,11 @@ public sealed class DifferentiallyPrivateScheme : IFederationScheme
         public void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message) =>
             _inner.EncodeUpload(actor, critic, message);
 
+        public bool TryWriteKeys(bool afterRejoin, HouseholdMessage message) => _inner.TryWriteKeys(afterRejoin, message);
+
+        public bool TryReceive(CoordinatorMessage message, HouseholdMessage reply, out bool hasReply) =>
+            _inner.TryReceive(message, reply, out hasReply);
+
         private static void Noisy(ref float[] buffer, ReadOnlySpan<float> clear, GaussianMechanism mechanism)
         {
             if (buffer.Length != clear.Length)
