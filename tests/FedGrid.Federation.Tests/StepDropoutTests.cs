@@ -56,6 +56,8 @@ public sealed class StepDropoutTests
         Assert.DoesNotContain(5, selected.Households);
         Assert.Contains("dropped", selected.Detail, StringComparison.Ordinal);
         // Both come back at round 1's start and send partial sums again.
+        Assert.DoesNotContain(sink.Records, r => r.Kind() == RecordKind.Unknown);
+        Assert.Equal(2, sink.Records.Count(r => r.Kind() == RecordKind.Rejoin));
         Assert.Equal([3, 5], Events(sink, EventKind.Rejoined).SelectMany(e => e.Households).ToArray());
         Assert.Contains(sink.Records, r => r.Round == 1 && r.Received is { BodyCase: HouseholdMessage.BodyOneofCase.Rejoin, HouseholdIndex: 3 });
         Assert.Contains(sink.Records, r => r.Round == 1 && r.Received is { BodyCase: HouseholdMessage.BodyOneofCase.PartialSums, HouseholdIndex: 3 });
@@ -200,6 +202,13 @@ public sealed class StepDropoutTests
         Assert.Contains(sink.Records, r => r.Round == 1 && r.Sent is { BodyCase: CoordinatorMessage.BodyOneofCase.MaskedKeys } s && s.MaskedKeys.Entries.Count(e => e.Excluded) == 15);
         Assert.Equal(15, sink.Records.Count(r => r.Round == 1 && r.Received is { BodyCase: HouseholdMessage.BodyOneofCase.MaskedKeys }));
         Assert.Equal(15, sink.Records.Count(r => r.Round == 1 && r.Received is { BodyCase: HouseholdMessage.BodyOneofCase.KeyShares }));
+        // The transcript reader knows every record of the exchange.
+        Assert.DoesNotContain(sink.Records, r => r.Kind() == RecordKind.Unknown);
+        // Keys: 32 received at admission and one directory broadcast; in round 1 one exclusion broadcast, then for the i-th
+        // of the 15 rejoining households its keys received, an update to each of the 17 + i households online, and its
+        // full directory.
+        Assert.Equal(32 + 1 + 1 + Enumerable.Range(0, 15).Sum(i => 1 + 17 + i + 1), sink.Records.Count(r => r.Kind() == RecordKind.MaskedKeys));
+        Assert.Equal(17 * 2, sink.Records.Count(r => r.Kind() == RecordKind.Recovery));
         // Same dropouts, same seed: the plain model up to fixed-point rounding (issue 7: at most 1e-6 relative).
         Close(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters);
         Close(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters);
