@@ -178,6 +178,12 @@ public sealed class StepDropoutTests
         Assert.Contains("under way", e.Message, StringComparison.Ordinal);
         Assert.True(run.StepOnce());
         Assert.Equal(CoordinatorPhase.CollectingPartialSums, run.Coordinator.Phase);
+        // Bus-aggregate inputs cannot go on without a household of a bus: refused up front.
+        var b = Assert.Throws<ArgumentException>(() => new InProcessFederation(TestRuns.Default(), new FederatedRunOptions
+        {
+            Federation = TestRuns.Options(), ProjectionForm = new BusAggregateProjectionInputs(), StepDropout = 0.1,
+        }, new RecordingTranscript()));
+        Assert.Contains("bus-aggregate", b.Message, StringComparison.Ordinal);
     }
 
     [Fact]

@@ -272,6 +272,10 @@ public sealed class Coordinator
         {
             throw new ProtocolException($"no decision step is open (phase {Phase}, last step {_step})");
         }
+        if (!_projection!.SupportsDropouts)
+        {
+            throw new ProtocolException($"the '{_setup.ProjectionForm.Name}' projection form cannot project step {_step} without the missing households");
+        }
         switch (Phase)
         {
             case CoordinatorPhase.CollectingPartialSums:
@@ -283,10 +287,6 @@ public sealed class Coordinator
                 FinishSums(outbox);
                 break;
             default:
-                if (!_projection!.SupportsDropouts)
-                {
-                    throw new ProtocolException($"the '{_setup.ProjectionForm.Name}' projection form cannot project step {_step} without the missing households");
-                }
                 DropMissing(_projectionSeen, "projection inputs");
                 FinishProjection(outbox);
                 break;

@@ -177,6 +177,10 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         {
             throw new ArgumentOutOfRangeException(nameof(options), options.StepDropout, "StepDropout must lie in [0, 1)");
         }
+        if ((options.StepDropout > 0 || options.ScriptedDropouts.Count > 0) && form is BusAggregateProjectionInputs)
+        {
+            throw new ArgumentException($"per-step dropouts are not supported with '{BusAggregateProjectionInputs.FormName}' projection inputs (a missing household's bus masks would not cancel)", nameof(options));
+        }
         foreach (ScriptedDropout d in options.ScriptedDropouts)
         {
             if (d.Household < 0 || d.Household >= n || d.Step < 0)
