@@ -42,6 +42,34 @@ public sealed class HostedRunTests
     }
 
     [Fact]
+    public async Task AHouseholdThatLeavesMidRunIsDroppedAtTheStepDeadlineAndTheRunCompletes()
+    {
+        string dir = Directory.CreateTempSubdirectory("fedgrid-step-timeout-").FullName;
+        string transcript = Path.Combine(dir, "run.fgt");
+        await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(5), stepTimeout: TimeSpan.FromSeconds(1), transcript: transcript);
+        using var leave = new CancellationTokenSource();
+        var hosts = Small.CreateScenario().Households
+            .Select(h => Task.Run(() => new HouseholdHost(Small, h.Id, NullLogger.Instance).RunAsync(c.Address, h.Id == "H03" ? leave.Token : CancellationToken.None))).ToArray();
+        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(c.Channel());
+        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < 30)
+        {
+            await Task.Delay(20);
+        }
+        await leave.CancelAsync(); // household H03's connection drops mid-run
+        CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(2));
+        Assert.True(outcome.Ok, outcome.Error);
+        Assert.Equal(96, outcome.Steps);
+        Assert.Equal(4, outcome.Rounds);
+        await Assert.ThrowsAnyAsync<Exception>(() => hosts[2]);
+        await Task.WhenAll(hosts[..2]).WaitAsync(TimeSpan.FromMinutes(1));
+        Assert.True(c.Logged("deadline passed"));
+        using var reader = FedGrid.Federation.Transcripts.TranscriptReader.Open(transcript);
+        var events = reader.Records().Where(r => r.Event is not null).Select(r => r.Event).ToList();
+        Assert.Contains(events, e => e.Kind == FedGrid.Federation.Wire.EventKind.StepDropout && e.Households.SequenceEqual([2]));
+        Assert.Contains(events, e => e.Kind == FedGrid.Federation.Wire.EventKind.RoundAggregated && !e.Households.Contains(2));
+    }
+
+    [Fact]
     public async Task LaunchWithRealProcessesMatchesTheInProcessRun()
     {
         string dll = typeof(FedGrid.Cli.Commands.LaunchCommand).Assembly.Location;
