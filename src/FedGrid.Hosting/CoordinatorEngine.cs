@@ -20,6 +20,13 @@ public sealed record CoordinatorHostOptions
     /// <summary>How long a round waits for its uploads before it closes with what arrived.</summary>
     public TimeSpan RoundTimeout { get; init; } = TimeSpan.FromSeconds(60);
 
+    /// <summary>
+    /// How long a decision step's phase (partial sums, projection inputs) waits, from its first message, for the other
+    /// households before <see cref="Coordinator.CloseStep"/> drops the missing ones for the round; null: a step waits for
+    /// every household and a household that leaves ends the run.
+    /// </summary>
+    public TimeSpan? StepTimeout { get; init; }
+
     /// <summary>Transcript file to write, or null.</summary>
     public string? TranscriptPath { get; init; }
 
@@ -65,7 +72,8 @@ internal sealed class HouseholdSession(int index, string id, bool rejoin = false
 /// </summary>
 public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
 {
-    private readonly record struct Inbound(HouseholdSession? Session, HouseholdMessage? Message, bool Disconnected, int TimeoutRound, int RejoinCheck = -1);
+    private readonly record struct Inbound(HouseholdSession? Session, HouseholdMessage? Message, bool Disconnected, int TimeoutRound, int RejoinCheck = -1,
+        long TimeoutStep = -1, CoordinatorPhase TimeoutPhase = CoordinatorPhase.Admitting);
 
     /// <summary>File name of the coordinator's checkpoint in its run folder.</summary>
     public const string CheckpointFileName = "coordinator.ckpt";
@@ -87,7 +95,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     private readonly object _gate = new();
     private readonly int _n;
     private readonly long _totalSteps;
-    private int _pendingCount, _expectedUploads, _connected;
+    private int _pendingCount, _expectedUploads, _connected, _trainingRound = -1;
     private long _wireBytes;
     private volatile bool _finished;
     private readonly string? _checkpoint;
@@ -283,6 +291,10 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 {
                     OnRejoinDeadline(item.RejoinCheck, item.Session!);
                 }
+                else if (item.TimeoutStep >= 0)
+                {
+                    OnStepTimeout(item.TimeoutStep, item.TimeoutPhase);
+                }
                 else if (item.Disconnected)
                 {
                     OnClosed(item.Session!);
@@ -342,10 +354,52 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         Interlocked.Add(ref _wireBytes, message.CalculateSize());
         _pending[m] = message;
         _pendingCount++;
-        int needed = _coordinator.Phase == CoordinatorPhase.CollectingUploads ? _expectedUploads : _n;
+        CoordinatorPhase phase = _coordinator.Phase;
+        int needed = phase switch
+        {
+            CoordinatorPhase.CollectingUploads => _expectedUploads,
+            CoordinatorPhase.Admitting => _n,
+            _ => _n - DroppedCount(),
+        };
+        if (_pendingCount == 1 && _options.StepTimeout is { } timeout && phase is CoordinatorPhase.CollectingPartialSums or CoordinatorPhase.CollectingProjectionInputs)
+        {
+            long step = phase == CoordinatorPhase.CollectingPartialSums ? message.PartialSums.Step : _coordinator.Step;
+            _ = Task.Delay(timeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(null, null, false, -1, TimeoutStep: step, TimeoutPhase: phase)), TaskScheduler.Default);
+        }
         if (_pendingCount == needed)
         {
             DeliverPending();
+        }
+    }
+
+    private int DroppedCount()
+    {
+        int d = 0;
+        for (int h = 0; h < _n; h++)
+        {
+            d += _coordinator.IsDropped(h) ? 1 : 0;
+        }
+        return d;
+    }
+
+    /// <summary>A step phase's deadline: the held messages go in, the coordinator drops the missing households and goes on.</summary>
+    private void OnStepTimeout(long step, CoordinatorPhase phase)
+    {
+        bool same = _coordinator.Phase == phase
+            && (phase == CoordinatorPhase.CollectingPartialSums ? _coordinator.Step == step - 1 : _coordinator.Step == step);
+        if (!same || _pendingCount == 0 || _finished)
+        {
+            return;
+        }
+        _log.LogWarning("step {Step}: deadline passed in {Phase} with {Arrived} of {Expected} households", step, phase, _pendingCount, _n - DroppedCount());
+        DeliverPending();
+        if (!_finished && _coordinator.StepOpen && _coordinator.Phase == phase)
+        {
+            lock (_gate)
+            {
+                _coordinator.CloseStep(this); // the next phase's replies arrive through the queue and get their own deadline
+            }
+            AfterDelivery();
         }
     }
 
@@ -359,6 +413,10 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         CoordinatorPhase phase = _coordinator.Phase;
         int round = _coordinator.Round;
         long next = _coordinator.Step + 1;
+        if (phase != CoordinatorPhase.Admitting && _coordinator.IsDropped(m))
+        {
+            return $"household {m} was dropped from round {round} after missing a step's deadline";
+        }
         return message.BodyCase switch
         {
             HouseholdMessage.BodyOneofCase.Join when phase == CoordinatorPhase.Admitting => null,
@@ -486,6 +544,12 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             _ = Task.Delay(_options.RejoinTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(session, null, false, -1, m)), TaskScheduler.Default);
             return;
         }
+        if (_options.StepTimeout is not null && _coordinator.Phase != CoordinatorPhase.Admitting)
+        {
+            // Its step messages will miss their deadline; the coordinator drops it and goes on above the quorum.
+            _log.LogWarning("household {Index} ('{Id}') left mid-step; the step deadline will drop it", m, session.Id);
+            return;
+        }
         _log.LogError("household {Index} ('{Id}') left in the middle of step {Step}", m, session.Id, _coordinator.Step);
         _done.TrySetResult(Outcome(false, $"household '{session.Id}' left in the middle of step {_coordinator.Step}"));
     }
@@ -540,8 +604,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         int size = copy.CalculateSize();
         if (copy.BodyCase == CoordinatorMessage.BodyOneofCase.Training)
         {
-            if (copy.Training.Round == _coordinator.Round && copy.HouseholdIndex == 0)
+            if (copy.Training.Round == _coordinator.Round && copy.Training.Round != _trainingRound)
             {
+                _trainingRound = copy.Training.Round;
                 Array.Clear(_selected);
                 _expectedUploads = 0;
                 int round = copy.Training.Round;

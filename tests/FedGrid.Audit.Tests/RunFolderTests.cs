@@ -117,6 +117,35 @@ public sealed class RunFolderTests
     }
 
     [Fact]
+    public void A_transcript_with_step_dropouts_and_rejoins_is_audited_with_the_missed_steps_unobserved()
+    {
+        string dir = Directory.CreateTempSubdirectory("fedgrid-audit-dropout-").FullName;
+        var run = new InProcessFederation(DefaultScenario.Create(DefaultScenario.DefaultSeed, 1), new FederatedRunOptions
+        {
+            Scheme = ClearScheme.Plain(),
+            Federation = new FederationOptions { Learning = TrainingDefaults.ActorCritic, StepsPerRound = 48 },
+            ScriptedDropouts = [new ScriptedDropout(3, 10), new ScriptedDropout(5, 30, DropoutPoint.BeforeProjectionInputs)],
+            TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
+        });
+        run.Run();
+        AuditRun audit = RunFolderReader.Load(dir);
+        Assert.Equal(96, audit.View.SlotCount);
+        int hN = audit.View.Households[3].PartialSums!.Length / 96;
+        // Household 3 sent nothing from step 10 to the round's end (step 47), and again from round 1 on.
+        Assert.All(Enumerable.Range(10, 38), t => Assert.True(float.IsNaN(audit.View.Households[3].PartialSums![t * hN])));
+        Assert.True(float.IsFinite(audit.View.Households[3].PartialSums![9 * hN]));
+        Assert.True(float.IsFinite(audit.View.Households[3].PartialSums![48 * hN]));
+        ScoreCard card = Scorer.Score(audit.View, Auditor.Attack(audit.View), audit.Truth!);
+        // The others' partial sums still give their base load away exactly; the dropped households' only on the steps they
+        // sent (the rest falls back to the prior).
+        HouseholdScore[] scores = [.. card.Households.Where(h => h.Channel == Channel.PartialSums && h.Attack == PartialSumInversion.Name && h.Quantity == Quantity.BaseLoad)];
+        Assert.Equal(32, scores.Length);
+        Assert.All(scores.Where(h => h.Household is not (3 or 5)), h => Assert.True(h.Attacked.RelativeRmse <= 1e-6, $"household {h.Household}: {h.Attacked.RelativeRmse}"));
+        Assert.All(scores.Where(h => h.Household is 3 or 5), h => Assert.True(h.Attacked.RelativeRmse > 1e-3 && h.Attacked.RelativeRmse < h.Prior.RelativeRmse,
+            $"household {h.Household}: {h.Attacked.RelativeRmse} against the prior's {h.Prior.RelativeRmse}"));
+    }
+
+    [Fact]
     public void A_missing_folder_or_transcript_is_named()
     {
         var e = Assert.Throws<RunFolderException>(() => RunFolderReader.Load("/nonexistent/run"));

@@ -13,9 +13,9 @@ internal sealed class TestCoordinator : IAsyncDisposable
     private readonly TaskCompletionSource<int> _port = new(TaskCreationOptions.RunContinuationsAsynchronously);
     private readonly CancellationTokenSource _cancel = new();
 
-    private TestCoordinator(HostedRunSettings run, TimeSpan roundTimeout, string? tls)
+    private TestCoordinator(HostedRunSettings run, TimeSpan roundTimeout, string? tls, TimeSpan? stepTimeout, string? transcript)
     {
-        _app = CoordinatorHost.Build(new CoordinatorHostOptions { Run = run, RoundTimeout = roundTimeout }, IPAddress.Loopback, 0, tlsFolder: tls,
+        _app = CoordinatorHost.Build(new CoordinatorHostOptions { Run = run, RoundTimeout = roundTimeout, StepTimeout = stepTimeout, TranscriptPath = transcript }, IPAddress.Loopback, 0, tlsFolder: tls,
             logging: b => { b.ClearProviders(); b.AddProvider(new ListLogger(Lines)); });
         Run = CoordinatorHost.RunAsync(_app, p => _port.TrySetResult(p), _cancel.Token, stopWhenDone: false);
         _ = Run.ContinueWith(t => _port.TrySetException(t.Exception ?? new Exception("coordinator ended before listening")), TaskContinuationOptions.NotOnRanToCompletion);
@@ -27,9 +27,10 @@ internal sealed class TestCoordinator : IAsyncDisposable
 
     public Uri Address { get; private set; } = null!;
 
-    public static async Task<TestCoordinator> StartAsync(HostedRunSettings run, TimeSpan? roundTimeout = null, string? tls = null)
+    public static async Task<TestCoordinator> StartAsync(HostedRunSettings run, TimeSpan? roundTimeout = null, string? tls = null,
+        TimeSpan? stepTimeout = null, string? transcript = null)
     {
-        var c = new TestCoordinator(run, roundTimeout ?? TimeSpan.FromSeconds(30), tls);
+        var c = new TestCoordinator(run, roundTimeout ?? TimeSpan.FromSeconds(30), tls, stepTimeout, transcript);
         int port = await c._port.Task.WaitAsync(TimeSpan.FromSeconds(30));
         c.Address = new Uri($"{(tls is null ? "http" : "https")}://127.0.0.1:{port}");
         return c;

@@ -15,6 +15,7 @@ internal static class CoordinatorCommand
         var result = new Option<string?>("--result") { Description = "write the run's outcome (JSON) to this file, atomically" };
         var transcript = new Option<string?>("--transcript") { Description = "write the transcript (everything received, in order) to this file" };
         var timeout = new Option<double>("--round-timeout") { Description = "seconds a round waits for its uploads (default 60)", DefaultValueFactory = _ => 60 };
+        var stepTimeout = new Option<double?>("--step-timeout") { Description = "seconds a decision step waits, from its first message, before it drops the missing households for the round (default: wait for all; a household leaving ends the run)" };
         var json = new Option<bool>("--json") { Description = "print the outcome as JSON" };
         var state = new Option<string?>("--state") { Description = "run folder: a checkpoint (coordinator.ckpt) is written there atomically at every round end" };
         var resume = new Option<bool>("--resume") { Description = "continue the run from the checkpoint in --state (starts afresh when there is none); without it an existing checkpoint is refused" };
@@ -29,6 +30,7 @@ internal static class CoordinatorCommand
         cmd.Options.Add(result);
         cmd.Options.Add(transcript);
         cmd.Options.Add(timeout);
+        cmd.Options.Add(stepTimeout);
         cmd.Options.Add(json);
         cmd.Options.Add(state);
         cmd.Options.Add(resume);
@@ -52,11 +54,15 @@ internal static class CoordinatorCommand
                 throw new UserInputException($"--rejoin-timeout must be positive, got {rejoinSeconds}");
             if (parse.GetValue(resume) && parse.GetValue(state) is null)
                 throw new UserInputException("--resume needs --state DIR (the run folder holding the checkpoint)");
+            double? step = parse.GetValue(stepTimeout);
+            if (step is { } st && !(st > 0))
+                throw new UserInputException($"--step-timeout must be positive, got {st}");
             var options = new CoordinatorHostOptions
             {
                 Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript),
                 StateFolder = parse.GetValue(state), Resume = parse.GetValue(resume), RejoinTimeout = TimeSpan.FromSeconds(rejoinSeconds),
                 HoldAfterCheckpointRound = parse.GetValue(hold),
+                StepTimeout = step is { } s ? TimeSpan.FromSeconds(s) : null,
             };
             var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), tlsFolder: folder);
             CoordinatorOutcome outcome = await CoordinatorHost.RunAsync(app, p => Console.Out.WriteLine($"coordinator: listening on {ip}:{p}"), cancel);

@@ -18,6 +18,8 @@ public enum CoordinatorPhase
     CollectingPartialSums,
     /// <summary>Collecting the current step's projection inputs.</summary>
     CollectingProjectionInputs,
+    /// <summary>Masked sums after a step's deadline: collecting the survivors' shares of the dropped households' mask keys.</summary>
+    CollectingRecoveryShares,
     /// <summary>Collecting the round's uploads from the selected households.</summary>
     CollectingUploads,
     /// <summary>The run was ended with <see cref="Coordinator.Finish"/>.</summary>
@@ -51,6 +53,24 @@ public sealed record CoordinatorSetup(Feeder Feeder, IReadOnlyList<string> Roste
 /// calls to a seeded selection → uploads → aggregation (quorum checked) → broadcast. Every message received and sent,
 /// and every decision (selection, aggregation, failed quorum, dropouts), goes to the transcript in order. A message that
 /// does not fit throws <see cref="ProtocolException"/> after being recorded, and leaves the state unchanged.
+/// <para>
+/// Dropouts. Round level: a selected household whose upload misses the deadline (<see cref="CloseRound"/>) is recorded
+/// and the round aggregates above the quorum. Step level: when a step's deadline passes (<see cref="CloseStep"/>), the
+/// households whose partial sums, projection inputs or (masked sums) recovery shares have not arrived are dropped for
+/// the rest of the round: recorded (<see cref="EventKind.StepDropout"/>), sent nothing more, not called to train, and
+/// the others' sums and the projection go on without them. A dropped household can come back at the next round's start
+/// (<see cref="RejoinRequest"/>, recorded as <see cref="EventKind.Rejoined"/>).
+/// </para>
+/// <para>
+/// What the projection assumes about a dropped household's physical load: it holds the household fixed at the desired
+/// (largest) flexible power and the base load it last reported (household form) — an offline gateway no longer
+/// curtails, so its appliance is taken to run as its resident wants, and the upper end of its last box is the
+/// conservative choice the coordinator can make from what it knows. It is an assumption, not a measurement: base load
+/// can rise after the last report, and before a household's first report the coordinator knows nothing of it (0 kW is
+/// assumed). The exact AC check judges the projected point under the assumption only; the operator's own meters remain
+/// the safeguard. FedGrid is a simulation: any field use must follow the utility's rules and be reviewed by licensed
+/// engineers (DESIGN.md §8).
+/// </para>
 /// </summary>
 public sealed class Coordinator
 {
@@ -60,7 +80,12 @@ public sealed class Coordinator
     private readonly DenseNetwork _actor, _critic;
     private readonly ICoordinatorSchemeSide _scheme;
     private readonly RegisteredHousehold?[] _registered;
-    private readonly bool[] _stepSeen, _projectionSeen, _selected;
+    private readonly bool[] _stepSeen, _projectionSeen, _selected, _dropped, _recoverySeen;
+    private readonly ICoordinatorSchemeMessages? _schemeMessages;
+    private readonly Action<CoordinatorMessage> _schemeSend;
+    private ICoordinatorOutbox? _schemeOutbox;
+    private int _droppedCount, _recoveryCount, _recoveryExpected;
+    private bool _recoveryAsked;
     private readonly ParameterUpload?[] _uploads;
     private readonly Dictionary<string, int> _rosterIndex;
     private readonly CoordinatorMessage _message = new();
@@ -101,7 +126,11 @@ public sealed class Coordinator
             }
         }
         _scheme = setup.Scheme.CreateCoordinatorSide(_m, ActorShape.FirstLayerSize, CriticShape.FirstLayerSize);
+        _schemeMessages = _scheme as ICoordinatorSchemeMessages;
+        _schemeSend = m => Send(_schemeOutbox!, m, -1);
         _registered = new RegisteredHousehold?[_m];
+        _dropped = new bool[_m];
+        _recoverySeen = new bool[_m];
         _stepSeen = new bool[_m];
         _projectionSeen = new bool[_m];
         _selected = new bool[_m];
@@ -168,6 +197,21 @@ public sealed class Coordinator
     /// <summary>Projections by outcome so far, indexed by <see cref="ProjectionStatus"/>.</summary>
     public int[] ProjectionOutcomes { get; } = new int[5];
 
+    /// <summary>Whether a decision step is open: some of its messages arrived and others are awaited (<see cref="CloseStep"/> applies).</summary>
+    public bool StepOpen => Phase is CoordinatorPhase.CollectingProjectionInputs or CoordinatorPhase.CollectingRecoveryShares
+        || (Phase == CoordinatorPhase.CollectingPartialSums && _stepCount > 0);
+
+    /// <summary>Whether household m is dropped (out of the current round, until it rejoins).</summary>
+    /// <param name="household">m.</param>
+    /// <returns>True when dropped.</returns>
+    public bool IsDropped(int household) => _dropped[household];
+
+    /// <summary>Households dropped out of a step so far (each time a household was dropped).</summary>
+    public int StepDropouts { get; private set; }
+
+    /// <summary>Dropped households admitted back so far.</summary>
+    public int Rejoins { get; private set; }
+
     /// <summary>Handles one household message; replies go to <paramref name="outbox"/>.</summary>
     /// <param name="message">The message (read during the call, not kept).</param>
     /// <param name="outbox">Where replies go.</param>
@@ -180,6 +224,7 @@ public sealed class Coordinator
             HouseholdMessage.BodyOneofCase.PartialSums => message.PartialSums.Step,
             HouseholdMessage.BodyOneofCase.ProjectionInputs => message.ProjectionInputs.Step,
             HouseholdMessage.BodyOneofCase.BusShares => message.BusShares.Step,
+            HouseholdMessage.BodyOneofCase.RecoveryShares => message.RecoveryShares.Step,
             _ => -1,
         };
         _transcript.Received(_round, step, message);
@@ -188,14 +233,62 @@ public sealed class Coordinator
             case HouseholdMessage.BodyOneofCase.Join:
                 OnJoin(message.Join, outbox);
                 break;
+            case HouseholdMessage.BodyOneofCase.Rejoin:
+                OnRejoin(Sender(message), message.Rejoin, outbox);
+                break;
+            case HouseholdMessage.BodyOneofCase.RecoveryShares:
+                OnRecoveryShares(Active(message), message.RecoveryShares, outbox);
+                break;
+            case HouseholdMessage.BodyOneofCase.MaskedKeys:
+            case HouseholdMessage.BodyOneofCase.KeyShares:
+                OnSchemeMessage(Sender(message), message, outbox);
+                break;
             case HouseholdMessage.BodyOneofCase.PartialSums:
-                OnPartialSums(Sender(message), message.PartialSums, outbox);
+                OnPartialSums(Active(message), message.PartialSums, outbox);
                 break;
             case HouseholdMessage.BodyOneofCase.Upload:
                 OnUpload(Sender(message), message.Upload, outbox);
                 break;
             default:
-                OnProjection(Sender(message), message, outbox);
+                OnProjection(Active(message), message, outbox);
+                break;
+        }
+    }
+
+    /// <summary>
+    /// The current step's deadline passed (mirrors <see cref="CloseRound"/> for the round's uploads): the households whose
+    /// partial sums, projection inputs or (masked sums) recovery shares have not arrived are dropped for the rest of the
+    /// round and recorded (<see cref="EventKind.StepDropout"/>); the step goes on without them. Under masked sums a
+    /// dropout in the partial-sums phase first asks the survivors for their shares of the dropped households' mask keys
+    /// (phase <see cref="CoordinatorPhase.CollectingRecoveryShares"/>; call again when that deadline passes); the sum is
+    /// recovered at or above the threshold, or the step is abandoned and recorded (never mis-summed).
+    /// </summary>
+    /// <param name="outbox">Where replies go.</param>
+    /// <exception cref="ProtocolException">No step is open (<see cref="StepOpen"/> is false), or the projection form cannot project without a household.</exception>
+    public void CloseStep(ICoordinatorOutbox outbox)
+    {
+        ArgumentNullException.ThrowIfNull(outbox);
+        if (!StepOpen)
+        {
+            throw new ProtocolException($"no decision step is open (phase {Phase}, last step {_step})");
+        }
+        if (!_projection!.SupportsDropouts)
+        {
+            throw new ProtocolException($"the '{_setup.ProjectionForm.Name}' projection form cannot project step {_step} without the missing households");
+        }
+        switch (Phase)
+        {
+            case CoordinatorPhase.CollectingPartialSums:
+                DropMissing(_stepSeen, "partial sums");
+                FinishSums(outbox);
+                break;
+            case CoordinatorPhase.CollectingRecoveryShares:
+                DropMissing(_recoverySeen, "recovery shares", onlyAmong: _stepSeen);
+                FinishSums(outbox);
+                break;
+            default:
+                DropMissing(_projectionSeen, "projection inputs");
+                FinishProjection(outbox);
                 break;
         }
     }
@@ -235,6 +328,104 @@ public sealed class Coordinator
             throw new ProtocolException($"message from unknown household index {m}");
         }
         return m;
+    }
+
+    private int Active(HouseholdMessage message)
+    {
+        int m = Sender(message);
+        if (_dropped[m])
+        {
+            throw new ProtocolException($"household {m} was dropped from round {_round} (it missed a step's deadline); it may rejoin at the next round's start");
+        }
+        return m;
+    }
+
+    private void DropMissing(bool[] seen, string what, bool[]? onlyAmong = null)
+    {
+        var missing = new List<int>();
+        for (int h = 0; h < _m; h++)
+        {
+            if (!_dropped[h] && !seen[h] && (onlyAmong is null || onlyAmong[h]))
+            {
+                missing.Add(h);
+            }
+        }
+        if (missing.Count == 0)
+        {
+            return;
+        }
+        foreach (int h in missing)
+        {
+            _dropped[h] = true;
+        }
+        _droppedCount += missing.Count;
+        StepDropouts += missing.Count;
+        string assumption = what == "recovery shares"
+            ? "their partial sums are in this step's sum"
+            : "the projection holds each at the desired power and base load it last reported";
+        Event(EventKind.StepDropout, missing, $"{missing.Count} households sent no {what} before the deadline of step {_step}; out for the rest of round {_round}; {assumption}", _step);
+    }
+
+    private void OnRejoin(int m, RejoinRequest rejoin, ICoordinatorOutbox outbox)
+    {
+        if (!_dropped[m])
+        {
+            throw new ProtocolException($"household {m} asks to rejoin but was not dropped");
+        }
+        if (Phase != CoordinatorPhase.CollectingPartialSums || _stepCount != 0 || _step >= (long)_round * _stepsPerRound)
+        {
+            throw new ProtocolException($"household {m} asks to rejoin while round {_round} is under way (phase {Phase}); it may rejoin at the next round's start");
+        }
+        if (rejoin.LastRound >= _round || rejoin.LastRound < 0)
+        {
+            throw new ProtocolException($"household {m} last took part in round {rejoin.LastRound}; the coordinator is in round {_round}");
+        }
+        _dropped[m] = false;
+        _droppedCount--;
+        Rejoins++;
+        Event(EventKind.Rejoined, [m], $"household {m} (last in round {rejoin.LastRound}) takes part again from round {_round}");
+        var model = new ModelBroadcast { Round = _round, Scope = ParameterScope.Shared, Aggregated = false };
+        Append(model.ActorParameters, _actor, -1);
+        Append(model.CriticParameters, _critic, -1);
+        Send(outbox, new CoordinatorMessage { HouseholdIndex = m, Model = model }, -1);
+        _schemeMessages?.Rejoined(m, _round);
+        _transcript.Flush();
+    }
+
+    private void OnSchemeMessage(int m, HouseholdMessage message, ICoordinatorOutbox outbox)
+    {
+        _schemeOutbox = outbox;
+        if (_schemeMessages is null || !_schemeMessages.TryReceive(m, message, _dropped, _schemeSend))
+        {
+            throw new ProtocolException($"household {m} sent a {message.BodyCase} message, which scheme '{_setup.Scheme.Name}' does not take");
+        }
+    }
+
+    private void OnRecoveryShares(int m, RecoveryShares shares, ICoordinatorOutbox outbox)
+    {
+        if (Phase != CoordinatorPhase.CollectingRecoveryShares)
+        {
+            throw new ProtocolException($"recovery shares from household {m} in phase {Phase}");
+        }
+        if (shares.Round != _round || shares.Step != _step)
+        {
+            throw new ProtocolException($"recovery shares from household {m} for round {shares.Round} step {shares.Step}; step {_step} of round {_round} is recovering");
+        }
+        if (!_stepSeen[m])
+        {
+            throw new ProtocolException($"household {m} sent recovery shares but no partial sums in step {_step}");
+        }
+        if (_recoverySeen[m])
+        {
+            throw new ProtocolException($"household {m} sent its recovery shares twice in step {_step}");
+        }
+        _scheme.PartialSums.AddShares(m, shares);
+        _recoverySeen[m] = true;
+        _recoveryCount++;
+        if (_recoveryCount == _recoveryExpected)
+        {
+            FinishSums(outbox);
+        }
     }
 
     private void OnJoin(JoinRequest join, ICoordinatorOutbox outbox)
@@ -362,16 +553,67 @@ public sealed class Coordinator
         }
         _stepSeen[m] = true;
         _stepCount++;
-        if (_stepCount < _m)
+        if (_stepCount < _m - _droppedCount)
         {
             return;
         }
+        FinishSums(outbox);
+    }
+
+    /// <summary>Every expected household's partial sums arrived, or the deadline passed: recover if needed, then reply.</summary>
+    private void FinishSums(ICoordinatorOutbox outbox)
+    {
+        IPartialSumsCombiner combiner = _scheme.PartialSums;
+        if (_droppedCount > 0 && !_recoveryAsked)
+        {
+            var missing = new List<int>();
+            for (int h = 0; h < _m; h++)
+            {
+                if (!_stepSeen[h])
+                {
+                    missing.Add(h);
+                }
+            }
+            IReadOnlyList<int> needed = combiner.SharesNeeded(missing);
+            if (needed.Count > 0)
+            {
+                _recoveryAsked = true;
+                _recoveryCount = 0;
+                _recoveryExpected = _stepCount;
+                Array.Clear(_recoverySeen);
+                Phase = CoordinatorPhase.CollectingRecoveryShares;
+                for (int h = 0; h < _m; h++)
+                {
+                    if (_stepSeen[h])
+                    {
+                        var request = new RecoveryRequest { Round = _round, Step = _step };
+                        request.Dropped.AddRange(needed);
+                        Send(outbox, new CoordinatorMessage { HouseholdIndex = h, RecoveryRequest = request }, _step);
+                    }
+                }
+                return;
+            }
+        }
+        _recoveryAsked = false;
+        SumsOutcome outcome = combiner.Close();
+        if (outcome.Recovered.Count > 0)
+        {
+            Event(EventKind.SumRecovered, outcome.Recovered, outcome.Detail ?? "masks of dropped households removed", _step);
+        }
+        if (!outcome.HasTotal)
+        {
+            Event(EventKind.SumAbandoned, outcome.Unrecovered, outcome.Detail ?? "no total for the step", _step);
+        }
         for (int h = 0; h < _m; h++)
         {
+            if (!_stepSeen[h] || _dropped[h])
+            {
+                continue; // dropped: out of the round, sent nothing more
+            }
             SumsReply reply = _sums[h];
             reply.Round = _round;
             reply.Step = _step;
-            _scheme.PartialSums.WriteReply(h, reply);
+            combiner.WriteReply(h, reply);
             _message.HouseholdIndex = h;
             _message.Sums = reply;
             Send(outbox, _message, _step);
@@ -380,6 +622,10 @@ public sealed class Coordinator
         _stepCount = 0;
         _projection!.Begin();
         Phase = CoordinatorPhase.CollectingProjectionInputs;
+        if (_droppedCount == _m)
+        {
+            FinishProjection(outbox);
+        }
     }
 
     private void OnProjection(int m, HouseholdMessage message, ICoordinatorOutbox outbox)
@@ -408,16 +654,36 @@ public sealed class Coordinator
         }
         _projectionSeen[m] = true;
         _projectionCount++;
-        if (_projectionCount < _m)
+        if (_projectionCount < _m - _droppedCount)
         {
             return;
         }
-        ProjectionResult result = _projection.Project();
+        FinishProjection(outbox);
+    }
+
+    private void FinishProjection(ICoordinatorOutbox outbox)
+    {
+        ICoordinatorProjectionSide projection = _projection!;
+        if (_droppedCount > 0)
+        {
+            for (int h = 0; h < _m; h++)
+            {
+                if (_dropped[h])
+                {
+                    projection.AddDropped(h);
+                }
+            }
+        }
+        ProjectionResult result = projection.Project();
         LastProjection = result;
         ProjectionOutcomes[(int)result.Status]++;
         for (int h = 0; h < _m; h++)
         {
-            _projection.WriteReply(h, _round, _step, _message);
+            if (_dropped[h])
+            {
+                continue;
+            }
+            projection.WriteReply(h, _round, _step, _message);
             Send(outbox, _message, _step);
         }
         Array.Clear(_projectionSeen);
@@ -447,21 +713,36 @@ public sealed class Coordinator
             _selected[order[i]] = true;
         }
         var chosen = new List<int>(count);
+        int droppedChosen = 0;
         for (int i = 0; i < _m; i++)
         {
+            if (_selected[i] && _dropped[i])
+            {
+                _selected[i] = false; // drawn, but out of the round: not called
+                droppedChosen++;
+            }
             if (_selected[i])
             {
                 chosen.Add(i);
             }
         }
-        Event(EventKind.RoundSelected, chosen, $"{count} of {_m} households called to train");
-        _selectedCount = count;
+        Event(EventKind.RoundSelected, chosen, droppedChosen == 0
+            ? $"{count} of {_m} households called to train"
+            : $"{chosen.Count} of {_m} households called to train ({droppedChosen} more drawn but dropped from the round)");
+        _selectedCount = chosen.Count;
         _uploadCount = 0;
         Array.Clear(_uploads);
         Phase = CoordinatorPhase.CollectingUploads;
         for (int h = 0; h < _m; h++)
         {
-            Send(outbox, new CoordinatorMessage { HouseholdIndex = h, Training = new TrainingCall { Round = _round, Selected = _selected[h] } }, -1);
+            if (!_dropped[h])
+            {
+                Send(outbox, new CoordinatorMessage { HouseholdIndex = h, Training = new TrainingCall { Round = _round, Selected = _selected[h] } }, -1);
+            }
+        }
+        if (_selectedCount == 0)
+        {
+            Aggregate(outbox);
         }
     }
 
@@ -572,6 +853,11 @@ public sealed class Coordinator
         _round = next;
         Array.Clear(_uploads);
         Phase = CoordinatorPhase.CollectingPartialSums;
+        if (_schemeMessages is not null)
+        {
+            _schemeOutbox = outbox;
+            _schemeMessages.BeginRound(next, _dropped, _schemeSend);
+        }
         _transcript.Flush();
     }
 
@@ -620,11 +906,11 @@ public sealed class Coordinator
         }
     }
 
-    private void Event(EventKind kind, IReadOnlyList<int> households, string detail)
+    private void Event(EventKind kind, IReadOnlyList<int> households, string detail, long step = -1)
     {
         var e = new CoordinatorEvent { Kind = kind, Detail = detail };
         e.Households.AddRange(households);
-        _transcript.Event(_round, -1, e);
+        _transcript.Event(_round, step, e);
     }
 
     private void Send(ICoordinatorOutbox outbox, CoordinatorMessage message, long step)

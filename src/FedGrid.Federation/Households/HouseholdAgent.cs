@@ -70,7 +70,8 @@ public sealed class HouseholdAgent
     private long _step = -1;
     private double _flexMin, _flexMax, _baseKw, _proposal, _setpoint;
     private int _pendingTrainingRound = -1;
-    private bool _pendingSelected, _hasModel;
+    private bool _pendingSelected, _hasModel, _rejoining, _stepStored;
+    private readonly RejoinRequest _rejoin = new();
 
     /// <summary>Creates a household machine.</summary>
     /// <param name="identity">Who the household is.</param>
@@ -156,10 +157,10 @@ public sealed class HouseholdAgent
         {
             case CoordinatorMessage.BodyOneofCase.Accepted:
                 Admit(message.Accepted);
-                return null;
+                return _schemeSide!.TryWriteKeys(false, Outgoing()) ? _out : null;
             case CoordinatorMessage.BodyOneofCase.Model:
-                LoadModel(message.Model);
-                return null;
+                bool rejoined = LoadModel(message.Model);
+                return rejoined && _schemeSide!.TryWriteKeys(true, Outgoing()) ? _out : null;
             case CoordinatorMessage.BodyOneofCase.Sums:
                 return OnSums(message.Sums);
             case CoordinatorMessage.BodyOneofCase.Training:
@@ -168,6 +169,10 @@ public sealed class HouseholdAgent
                 if (_index >= 0 && Phase != HouseholdPhase.AwaitingAdmission && _projectionSide.TryReadSetup(_index, message))
                 {
                     return null;
+                }
+                if (_schemeSide is not null && _schemeSide.TryReceive(message, Outgoing(), out bool hasReply))
+                {
+                    return hasReply ? _out : null;
                 }
                 if (Phase == HouseholdPhase.AwaitingSetpoint && _projectionSide.TryReadSetpoint(message, _flexMin, _flexMax, out double s, out int sRound, out long sStep))
                 {
@@ -178,6 +183,29 @@ public sealed class HouseholdAgent
                 }
                 throw new ProtocolException($"household {_index} in phase {Phase} cannot take a {message.BodyCase} message");
         }
+    }
+
+    /// <summary>
+    /// Asks to take part again after the coordinator dropped the household out of a round (it missed a step's deadline):
+    /// call at the start of a later round, before its first step. The household forgets the step it was in and the
+    /// transitions it buffered (they no longer join up), and waits for the current model; under masked sums it then
+    /// sends fresh keys.
+    /// </summary>
+    /// <returns>The rejoin request to send.</returns>
+    public HouseholdMessage Rejoin()
+    {
+        if (_index < 0 || !_hasModel)
+        {
+            throw new ProtocolException($"household {_identity.Id} cannot rejoin before it was admitted and had a model");
+        }
+        _rejoin.LastRound = _round;
+        _buffer!.Count = 0;
+        _pendingTrainingRound = -1;
+        _rejoining = true;
+        _out.HouseholdIndex = _index;
+        _out.Rejoin = _rejoin;
+        Phase = HouseholdPhase.AwaitingModel;
+        return _out;
     }
 
     /// <summary>
@@ -231,8 +259,11 @@ public sealed class HouseholdAgent
     {
         Expect(HouseholdPhase.AwaitingCost, "complete a step");
         TransitionBuffer b = _buffer!;
-        int row = b.Count - 1; // the row of this step was filled at the sums reply
-        b.Cost[row] = (float)cost;
+        if (_stepStored)
+        {
+            int row = b.Count - 1; // the row of this step was filled at the sums reply
+            b.Cost[row] = (float)cost;
+        }
         Phase = HouseholdPhase.Ready;
         if (_pendingTrainingRound >= 0)
         {
@@ -305,12 +336,13 @@ public sealed class HouseholdAgent
         scratch.Parameters.Slice(o, n).CopyTo(network.Parameters.Slice(o, n));
     }
 
-    private void LoadModel(ModelBroadcast model)
+    private bool LoadModel(ModelBroadcast model)
     {
         Expect(HouseholdPhase.AwaitingModel, "load a model");
-        if (model.Round != _round)
+        bool rejoined = _rejoining;
+        if (rejoined ? model.Round <= _round : model.Round != _round)
         {
-            throw new ProtocolException($"household {_index} waits for the model of round {_round}, got round {model.Round}");
+            throw new ProtocolException($"household {_index} waits for the model of {(rejoined ? "a round after" : "round")} {_round}, got round {model.Round}");
         }
         bool own = model.Scope == ParameterScope.OwnColumnsAndShared;
         if (own && !_scheme.ColumnsCrossWire)
@@ -332,7 +364,16 @@ public sealed class HouseholdAgent
         _schemeSide!.ModelLoaded(_actor.Parameters.Slice(aso, asn), _critic.Parameters.Slice(cso, csn));
         _hasModel = true;
         _trainer!.ResetOptimisers();
+        _round = model.Round;
+        _rejoining = false;
         Phase = HouseholdPhase.Ready;
+        return rejoined;
+    }
+
+    private HouseholdMessage Outgoing()
+    {
+        _out.HouseholdIndex = _index;
+        return _out;
     }
 
     private void Load(DenseNetwork network, Google.Protobuf.Collections.RepeatedField<float> values, bool own, string what)
@@ -371,6 +412,20 @@ public sealed class HouseholdAgent
         Expect(HouseholdPhase.AwaitingSums, "take a sums reply");
         CheckStep(reply.Round, reply.Step, "sums reply");
         TransitionBuffer b = _buffer!;
+        if (reply.Kind == SumsKind.Abandoned)
+        {
+            // No sum for the step (masked sums below the threshold): no policy decision. The household proposes its
+            // desired power (what it would draw without the programme; the projection still bounds it) and keeps no
+            // transition: the buffered ones would no longer join up across the gap.
+            b.Count = 0;
+            _stepStored = false;
+            _proposal = _flexMax;
+            _projectionSide.WriteInputs(_round, _step, _proposal, _flexMin, _flexMax, _baseKw, _out);
+            _out.HouseholdIndex = _index;
+            Phase = HouseholdPhase.AwaitingSetpoint;
+            return _out;
+        }
+        _stepStored = true;
         if (b.Count == b.Capacity)
         {
             throw new ProtocolException($"household {_index}: more steps in round {_round} than the round holds");

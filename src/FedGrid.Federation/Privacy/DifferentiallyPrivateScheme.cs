@@ -199,6 +199,11 @@ public sealed class DifferentiallyPrivateScheme : IFederationScheme
         public void DecodeSums(SumsReply reply, ReadOnlySpan<float> ownActor, ReadOnlySpan<float> ownCritic, Span<float> otherActor, Span<float> otherCritic) =>
             _inner.DecodeSums(reply, _actor.AsSpan(0, ownActor.Length), _critic.AsSpan(0, ownCritic.Length), otherActor, otherCritic);
 
+        public bool TryWriteKeys(bool afterRejoin, HouseholdMessage message) => _inner.TryWriteKeys(afterRejoin, message);
+
+        public bool TryReceive(CoordinatorMessage message, HouseholdMessage reply, out bool hasReply) =>
+            _inner.TryReceive(message, reply, out hasReply);
+
         public void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared)
         {
             Copy(ref _actorBase, actorShared);

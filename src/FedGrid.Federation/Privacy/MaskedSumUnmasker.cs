@@ -35,12 +35,14 @@ public readonly record struct MaskedSumResult(MaskedSumStatus Status, int Surviv
 /// total with NaN: a round is never mis-summed.
 /// <para>
 /// A household whose key was rebuilt has its masks known to the coordinator from then on; its later vectors under
-/// the same keys are refused (<see cref="Add"/> throws) — it must rejoin with a fresh key pair and session.
+/// the same keys are refused (<see cref="Add"/> throws) — it must come back with a fresh key pair
+/// (<see cref="Exclude"/> then <see cref="Replace"/>). An excluded household is neither expected nor masked with.
 /// </para>
 /// </summary>
 public sealed class MaskedSumUnmasker : IDisposable
 {
-    private readonly IReadOnlyList<byte[]> _publicKeys;
+    private readonly byte[][] _publicKeys;
+    private readonly bool[] _excluded;
     private readonly byte[] _sessionId;
     private readonly ulong[] _sum;
     private readonly ulong[] _scratch;
@@ -75,7 +77,8 @@ public sealed class MaskedSumUnmasker : IDisposable
             throw new ArgumentOutOfRangeException(nameof(threshold), threshold, $"threshold must be between 2 and the {publicKeys.Count} households");
         }
         ArgumentOutOfRangeException.ThrowIfNegative(maxLength);
-        _publicKeys = publicKeys;
+        _publicKeys = [.. publicKeys];
+        _excluded = new bool[publicKeys.Count];
         _sessionId = sessionId.ToArray();
         Encoding = encoding;
         Threshold = threshold;
@@ -89,7 +92,7 @@ public sealed class MaskedSumUnmasker : IDisposable
     public int Threshold { get; }
 
     /// <summary>Number of households n.</summary>
-    public int HouseholdCount => _publicKeys.Count;
+    public int HouseholdCount => _publicKeys.Length;
 
     /// <summary>The fixed-point encoding.</summary>
     public FixedPointEncoding Encoding { get; }
@@ -102,7 +105,7 @@ public sealed class MaskedSumUnmasker : IDisposable
             _dropped.Clear();
             for (int k = 0; k < _arrived.Length; k++)
             {
-                if (!_arrived[k])
+                if (!_arrived[k] && !_excluded[k])
                 {
                     _dropped.Add(k);
                 }
@@ -115,6 +118,49 @@ public sealed class MaskedSumUnmasker : IDisposable
     /// <param name="household">k.</param>
     /// <returns>True once revealed.</returns>
     public bool IsRevealed(int household) => _revealed[household];
+
+    /// <summary>Whether household k is out of the masks.</summary>
+    /// <param name="household">k.</param>
+    /// <returns>True when excluded.</returns>
+    public bool IsExcluded(int household) => _excluded[household];
+
+    /// <summary>Takes household k out of the sums and masks (the households were told to stop masking with it).</summary>
+    /// <param name="household">k.</param>
+    public void Exclude(int household)
+    {
+        _excluded[household] = true;
+        _revealed[household] = false;
+        foreach ((int d, int s) in _recoveredPairs.Keys.ToArray())
+        {
+            if (d == household || s == household)
+            {
+                _recoveredPairs[(d, s)].Dispose();
+                _recoveredPairs.Remove((d, s));
+            }
+        }
+    }
+
+    /// <summary>Brings excluded household k back with its new public key.</summary>
+    /// <param name="household">k.</param>
+    /// <param name="publicKey">Its new public key.</param>
+    /// <exception cref="InvalidOperationException">k is not excluded, or a revealed household is not excluded yet.</exception>
+    public void Replace(int household, byte[] publicKey)
+    {
+        ArgumentNullException.ThrowIfNull(publicKey);
+        if (!_excluded[household])
+        {
+            throw new InvalidOperationException($"household {household} must be excluded before it comes back with a new key");
+        }
+        for (int k = 0; k < _revealed.Length; k++)
+        {
+            if (_revealed[k])
+            {
+                throw new InvalidOperationException($"household {k}'s key was rebuilt and it is not excluded yet; exclude it before a household comes back");
+            }
+        }
+        _publicKeys[household] = publicKey;
+        _excluded[household] = false;
+    }
 
     /// <summary>Starts a masked sum.</summary>
     /// <param name="context">Round, step and channel the households masked with.</param>
@@ -150,6 +196,10 @@ public sealed class MaskedSumUnmasker : IDisposable
         {
             throw new InvalidOperationException($"household {household}'s key was rebuilt after a dropout; it must rejoin with fresh keys");
         }
+        if (_excluded[household])
+        {
+            throw new InvalidOperationException($"household {household} is excluded from the masks");
+        }
         if (_arrived[household])
         {
             throw new InvalidOperationException($"household {household} already sent this step's vector");
@@ -179,7 +229,11 @@ public sealed class MaskedSumUnmasker : IDisposable
             throw new ArgumentException($"total of {total.Length} values for vectors of {_length}", nameof(total));
         }
         Span<ulong> sum = _sum.AsSpan(0, _length);
-        int dropped = _arrived.Length - _survivors;
+        int dropped = 0;
+        for (int k = 0; k < _arrived.Length; k++)
+        {
+            dropped += _arrived[k] || _excluded[k] ? 0 : 1;
+        }
         MaskedSumResult result;
         if (dropped == 0)
         {
@@ -226,7 +280,7 @@ public sealed class MaskedSumUnmasker : IDisposable
         // First rebuild every dropped key (all or nothing), then touch the sum.
         for (int d = 0; d < _arrived.Length; d++)
         {
-            if (_arrived[d] || _revealed[d])
+            if (_arrived[d] || _revealed[d] || _excluded[d])
             {
                 continue;
             }
@@ -262,7 +316,7 @@ public sealed class MaskedSumUnmasker : IDisposable
             {
                 for (int s = 0; s < _arrived.Length; s++)
                 {
-                    if (s != d && !_revealed[s])
+                    if (s != d && !_revealed[s] && !_excluded[s])
                     {
                         byte[] key = PairwiseMask.DeriveKey(rebuilt, _publicKeys[s], _sessionId, d, s);
                         _recoveredPairs[(d, s)] = new AesCtr(key);

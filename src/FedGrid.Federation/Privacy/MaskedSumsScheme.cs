@@ -1,3 +1,4 @@
+using System.Numerics;
 using System.Security.Cryptography;
 using FedGrid.Federation.Schemes;
 using FedGrid.Federation.Wire;
@@ -11,18 +12,32 @@ namespace FedGrid.Federation.Privacy;
 /// (<see cref="PairwiseMasker"/>: P-256 ECDH, HKDF-SHA256, AES-CTR, one counter block per round, step and channel).
 /// The masks cancel in the sum, so the coordinator (<see cref="MaskedSumUnmasker"/>) learns only the total and
 /// replies with it (<see cref="SumsKind.Total"/>); each household subtracts its own clear part. Uploads and their
-/// aggregation are the wrapped scheme's.
+/// aggregation are the wrapped scheme's, so a seed gives the wrapped scheme's model up to fixed-point rounding.
 /// <para>
-/// Key agreement: each household side draws its key pair from the operating system's generator when it is created and
-/// publishes only the public key in the scheme's key directory, which the coordinator side reads; the private key
-/// never leaves the household side. In this in-process runner the directory is an object shared by both sides, not
-/// a message: the public keys are not (yet) in the transcript. They reveal nothing about the partial sums.
+/// Key agreement, as recorded protocol messages (all in the transcript, all carried by the hosts): after admission each
+/// household draws two P-256 key pairs from the operating system's generator — a mask key and a share-encryption key —
+/// and sends the public halves (<see cref="MaskedSumsPublicKeys"/>). Once every household has, the coordinator sends
+/// the directory (<see cref="MaskedSumsKeys"/>: both keys of everyone, the session id it chose, the threshold t). Each
+/// household then splits its private mask scalar into Shamir t-of-n shares and sends one to each peer encrypted for it
+/// (<see cref="KeyShares"/>, <see cref="KeyShareCipher"/>); the coordinator relays each share to its holder
+/// (<see cref="EncryptedKeyShare"/>) and cannot read it. Private keys never leave the household.
 /// </para>
 /// <para>
-/// Dropouts: every household of the run sends partial sums every step (the protocol has no per-step dropout), so each
-/// step is <see cref="MaskedSumStatus.Complete"/>; a step the unmasker cannot complete is a
-/// <see cref="ProtocolException"/>, never a mis-sum. Shamir recovery of dropped households' keys is implemented and
-/// tested in <see cref="MaskedSumUnmasker"/> itself.
+/// Dropouts: when a step's deadline passes with households missing (<c>Coordinator.CloseStep</c>), the coordinator
+/// asks the survivors (<see cref="RecoveryRequest"/>) for their shares of the dropped households' mask keys
+/// (<see cref="RecoveryShares"/>); with at least t of them it rebuilds each dropped key (checked against the published
+/// public key), removes the dropped households' masks and replies the survivors' total (recorded as
+/// <c>SumRecovered</c>). Below t it records <c>SumAbandoned</c> and replies <see cref="SumsKind.Abandoned"/> for this
+/// and the round's later steps: no total, never a mis-sum. At the next round's start the still-dropped households are
+/// excluded from everyone's masks (a <see cref="MaskedSumsKeys"/> update); a household that rejoins sends fresh keys,
+/// which the coordinator relays to the others, and shares its new mask key again.
+/// </para>
+/// <para>
+/// Limits, stated plainly: a rebuilt mask key is known to the coordinator, so a dropped household's vector that still
+/// arrives late for that step would be readable by it (the coordinator refuses it, but an honest-but-curious one could
+/// keep it; Bonawitz et al.'s second, self mask closes this and is not implemented). A household that rejoins holds no
+/// shares of its peers' keys from before it left unless its peers' keys are unchanged (in-process its old shares stay
+/// valid); the threshold then counts the shares actually held. One key-agreement session serves the run.
 /// </para>
 /// </summary>
 public sealed class MaskedSumsScheme : IFederationScheme
@@ -42,19 +57,30 @@ public sealed class MaskedSumsScheme : IFederationScheme
     public static int FractionalBits(int households) =>
         Math.Min(52, 62 - (int)Math.Ceiling(Math.Log2(households)) - 10);
 
+    /// <summary>The default threshold for M households: a majority, ⌊M/2⌋ + 1 (Bonawitz et al. take t &gt; n/2), at least 2.</summary>
+    /// <param name="households">M.</param>
+    /// <returns>t.</returns>
+    public static int DefaultThreshold(int households) => Math.Min(households, Math.Max(2, households / 2 + 1));
+
     private const int ActorChannel = 0, CriticChannel = 1;
 
     private readonly IFederationScheme _inner;
     private readonly byte[] _sessionId;
-    private byte[]?[] _directory = [];
+    private readonly int? _threshold;
 
     /// <summary>Wraps a clear scheme.</summary>
     /// <param name="inner">The scheme whose uploads, aggregation and column policy are used (plain by default).</param>
-    /// <param name="sessionId">Session identifier bound into every pairwise key (HKDF salt); 16 random bytes when null.</param>
-    public MaskedSumsScheme(IFederationScheme? inner = null, byte[]? sessionId = null)
+    /// <param name="sessionId">Session identifier the coordinator binds into every pairwise key (HKDF salt); 16 random bytes when null.</param>
+    /// <param name="threshold">t of the Shamir sharing (<see cref="DefaultThreshold"/> when null); 2 ≤ t ≤ M.</param>
+    public MaskedSumsScheme(IFederationScheme? inner = null, byte[]? sessionId = null, int? threshold = null)
     {
         _inner = inner ?? ClearScheme.Plain();
         _sessionId = sessionId ?? RandomNumberGenerator.GetBytes(16);
+        if (threshold is < 2)
+        {
+            throw new ArgumentOutOfRangeException(nameof(threshold), threshold, "the threshold must be at least 2");
+        }
+        _threshold = threshold;
     }
 
     /// <summary>The wrapped scheme.</summary>
@@ -66,82 +92,232 @@ public sealed class MaskedSumsScheme : IFederationScheme
     /// <inheritdoc />
     public bool ColumnsCrossWire => _inner.ColumnsCrossWire;
 
-    /// <summary>Steps the coordinator side summed (all complete).</summary>
+    /// <summary>Steps the coordinator side summed with every household present.</summary>
     public long CompletedSums { get; private set; }
 
+    /// <summary>Steps summed after removing dropped households' masks.</summary>
+    public long RecoveredSums { get; private set; }
+
+    /// <summary>Steps with no total (too few shares).</summary>
+    public long AbandonedSums { get; private set; }
+
     /// <inheritdoc />
-    public IHouseholdSchemeSide CreateHouseholdSide(int householdIndex, ulong householdSeed)
-    {
-        var keys = MaskingKeyPair.Generate();
-        Publish(householdIndex, keys.PublicKey);
-        return new HouseholdSide(this, householdIndex, keys, _inner.CreateHouseholdSide(householdIndex, householdSeed));
-    }
+    public IHouseholdSchemeSide CreateHouseholdSide(int householdIndex, ulong householdSeed) =>
+        new HouseholdSide(householdIndex, _inner.CreateHouseholdSide(householdIndex, householdSeed));
 
     /// <inheritdoc />
     public ICoordinatorSchemeSide CreateCoordinatorSide(int householdCount, int actorSums, int criticSums)
     {
         ArgumentOutOfRangeException.ThrowIfLessThan(householdCount, 2);
-        if (_directory.Length != householdCount)
+        int t = _threshold ?? DefaultThreshold(householdCount);
+        if (t > householdCount)
         {
-            _directory = new byte[]?[householdCount];
+            throw new ArgumentOutOfRangeException(nameof(householdCount), householdCount, $"the masked-sums threshold {t} exceeds the {householdCount} households");
         }
-        return new CoordinatorSide(this, _inner.CreateCoordinatorSide(householdCount, actorSums, criticSums), householdCount, actorSums, criticSums);
+        return new CoordinatorSide(this, _inner.CreateCoordinatorSide(householdCount, actorSums, criticSums), householdCount, actorSums, criticSums, t);
     }
 
     private static FixedPointEncoding Encoding(int households) => new(MaxAbsValue, households, FractionalBits(households));
 
-    private void Publish(int household, byte[] publicKey)
-    {
-        if (household < 0 || household >= _directory.Length)
-        {
-            throw new ProtocolException($"masked sums: household {household} outside the coordinator's {_directory.Length} households");
-        }
-        if (_directory[household] is not null)
-        {
-            throw new ProtocolException($"masked sums: household {household} published a second key");
-        }
-        _directory[household] = publicKey;
-    }
-
-    private byte[][] PublicKeys()
-    {
-        var keys = new byte[_directory.Length][];
-        for (int k = 0; k < keys.Length; k++)
-        {
-            keys[k] = _directory[k] ?? throw new ProtocolException($"masked sums: household {k} has published no key yet");
-        }
-        return keys;
-    }
-
     private static MaskContext Context(PartialSums message, int channel) => new(message.Round, message.Step, channel);
+
+    private static void CheckKey(ReadOnlySpan<byte> key, int household, string what)
+    {
+        if (key.Length != MaskingKeyPair.PublicKeyBytes || key[0] != 0x04)
+        {
+            throw new ProtocolException($"masked sums: household {household}'s {what} key is {key.Length} bytes; a P-256 public key is {MaskingKeyPair.PublicKeyBytes} bytes starting 0x04");
+        }
+        try
+        {
+            MaskingKeyPair.ImportPublic(key, out ECDiffieHellman holder).Dispose();
+            holder.Dispose();
+        }
+        catch (CryptographicException e)
+        {
+            throw new ProtocolException($"masked sums: household {household}'s {what} key is not a P-256 point ({e.Message})");
+        }
+    }
 
     private sealed class HouseholdSide : IHouseholdSchemeSide
     {
-        private readonly MaskedSumsScheme _scheme;
         private readonly int _index;
-        private readonly MaskingKeyPair _keys;
         private readonly IHouseholdSchemeSide _inner;
+        private MaskingKeyPair? _maskKeys, _shareKeys;
         private PairwiseMasker? _masker;
+        private byte[]?[] _maskKeyOf = [], _shareKeyOf = [];
+        private BigInteger?[] _held = [];
+        private byte[] _sessionId = [];
+        private int _threshold;
+        private bool _ready;
         private ulong[] _actor = [], _critic = [];
 
-        public HouseholdSide(MaskedSumsScheme scheme, int index, MaskingKeyPair keys, IHouseholdSchemeSide inner)
+        public HouseholdSide(int index, IHouseholdSchemeSide inner)
         {
-            _scheme = scheme;
             _index = index;
-            _keys = keys;
             _inner = inner;
+        }
+
+        public bool TryWriteKeys(bool afterRejoin, HouseholdMessage message)
+        {
+            _masker?.Dispose();
+            _masker = null;
+            _ready = false;
+            _maskKeys?.Dispose();
+            _shareKeys?.Dispose();
+            _maskKeys = MaskingKeyPair.Generate();
+            _shareKeys = MaskingKeyPair.Generate();
+            message.MaskedKeys = new MaskedSumsPublicKeys
+            {
+                MaskKey = Google.Protobuf.ByteString.CopyFrom(_maskKeys.PublicKey),
+                ShareKey = Google.Protobuf.ByteString.CopyFrom(_shareKeys.PublicKey),
+            };
+            return true;
+        }
+
+        public bool TryReceive(CoordinatorMessage message, HouseholdMessage reply, out bool hasReply)
+        {
+            hasReply = false;
+            switch (message.BodyCase)
+            {
+                case CoordinatorMessage.BodyOneofCase.MaskedKeys:
+                    hasReply = OnKeys(message.MaskedKeys, reply);
+                    return true;
+                case CoordinatorMessage.BodyOneofCase.KeyShare:
+                    OnShare(message.KeyShare);
+                    return true;
+                case CoordinatorMessage.BodyOneofCase.RecoveryRequest:
+                    OnRecoveryRequest(message.RecoveryRequest, reply);
+                    hasReply = true;
+                    return true;
+                default:
+                    return false;
+            }
+        }
+
+        private bool OnKeys(MaskedSumsKeys keys, HouseholdMessage reply)
+        {
+            if (_maskKeys is null || _shareKeys is null)
+            {
+                throw new ProtocolException($"masked sums: household {_index} got a key directory before it sent its keys");
+            }
+            if (_maskKeyOf.Length == 0)
+            {
+                int count = keys.Entries.Count;
+                _maskKeyOf = new byte[]?[count];
+                _shareKeyOf = new byte[]?[count];
+                _held = new BigInteger?[count];
+                _sessionId = keys.SessionId.ToByteArray();
+                _threshold = keys.Threshold;
+            }
+            bool own = false;
+            foreach (MaskedSumsKeyEntry e in keys.Entries)
+            {
+                int k = e.Household;
+                if (k < 0 || k >= _maskKeyOf.Length)
+                {
+                    throw new ProtocolException($"masked sums: key directory names household {k} of {_maskKeyOf.Length}");
+                }
+                if (k == _index)
+                {
+                    if (e.Excluded || !e.MaskKey.Span.SequenceEqual(_maskKeys.PublicKey) || !e.ShareKey.Span.SequenceEqual(_shareKeys.PublicKey))
+                    {
+                        throw new ProtocolException($"masked sums: the key directory does not carry household {_index}'s own keys");
+                    }
+                    own = true;
+                    continue;
+                }
+                byte[]? mask = e.Excluded ? null : e.MaskKey.ToByteArray(), share = e.Excluded ? null : e.ShareKey.ToByteArray();
+                if (mask is not null)
+                {
+                    CheckKey(mask, k, "mask");
+                    CheckKey(share, k, "share");
+                }
+                if (share is null || _shareKeyOf[k] is not { } known || !known.AsSpan().SequenceEqual(share))
+                {
+                    _held[k] = null; // a share of an older key of k (or of an excluded k) is of no use
+                }
+                bool changed = mask is null ? _maskKeyOf[k] is not null : _maskKeyOf[k] is not { } old || !old.AsSpan().SequenceEqual(mask);
+                _maskKeyOf[k] = mask;
+                _shareKeyOf[k] = share;
+                if (_masker is not null && changed)
+                {
+                    if (mask is null)
+                    {
+                        _masker.Exclude(k);
+                    }
+                    else
+                    {
+                        _masker.Replace(k, mask);
+                    }
+                }
+            }
+            if (_ready || !own)
+            {
+                return false;
+            }
+            // The directory with this household's own (new) keys: share the mask key (the pair keys are agreed at the
+            // first step, when the vector lengths are known).
+            _ready = true;
+            int n = _maskKeyOf.Length;
+            ShamirShare[] shares = _maskKeys.SharePrivateScalar(n, _threshold);
+            var message = new KeyShares();
+            for (int k = 0; k < n; k++)
+            {
+                if (k != _index && _shareKeyOf[k] is { } peer)
+                {
+                    message.Shares.Add(new EncryptedKeyShare
+                    {
+                        Owner = _index,
+                        Holder = k,
+                        Ciphertext = Google.Protobuf.ByteString.CopyFrom(KeyShareCipher.Encrypt(_shareKeys, peer, _sessionId, _index, k, shares[k].Value)),
+                    });
+                }
+            }
+            reply.KeyShares = message;
+            return true;
+        }
+
+        private void OnShare(EncryptedKeyShare share)
+        {
+            int owner = share.Owner;
+            if (share.Holder != _index || owner < 0 || owner >= _shareKeyOf.Length || owner == _index || _shareKeyOf[owner] is not { } ownerKey)
+            {
+                throw new ProtocolException($"masked sums: household {_index} got a key share of household {owner} for household {share.Holder}, which it cannot take");
+            }
+            _held[owner] = KeyShareCipher.Decrypt(_shareKeys!, ownerKey, _sessionId, owner, _index, share.Ciphertext.Span);
+        }
+
+        private void OnRecoveryRequest(RecoveryRequest request, HouseholdMessage reply)
+        {
+            var answer = new RecoveryShares { Round = request.Round, Step = request.Step };
+            Span<byte> value = stackalloc byte[KeyShareCipher.ValueBytes];
+            foreach (int d in request.Dropped)
+            {
+                // Reveal only shares of other households (never help rebuild one's own key).
+                if (d != _index && d >= 0 && d < _held.Length && _held[d] is { } v)
+                {
+                    KeyShareCipher.WriteValue(v, value);
+                    answer.Shares.Add(new RevealedShare { Owner = d, Value = Google.Protobuf.ByteString.CopyFrom(value) });
+                    _held[d] = null; // its key is rebuilt now; the share is spent
+                }
+            }
+            reply.RecoveryShares = answer;
         }
 
         public void EncodePartialSums(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, PartialSums message)
         {
+            if (!_ready)
+            {
+                throw new ProtocolException($"masked sums: household {_index} has not received the key directory with its keys yet");
+            }
             if (_masker is null)
             {
-                // First step: every household has been admitted, so the directory is complete.
-                byte[][] keys = _scheme.PublicKeys();
-                _masker = new PairwiseMasker(_index, _keys, keys, _scheme._sessionId, Encoding(keys.Length), Math.Max(actor.Length, critic.Length));
+                var all = new byte[]?[_maskKeyOf.Length];
+                _maskKeyOf.CopyTo(all, 0);
+                all[_index] = _maskKeys!.PublicKey;
+                _masker = new PairwiseMasker(_index, _maskKeys, all, _sessionId, Encoding(all.Length), Math.Max(actor.Length, critic.Length));
                 _actor = new ulong[actor.Length];
                 _critic = new ulong[critic.Length];
-                _keys.Dispose(); // the pairwise streams are derived; the private key is no longer needed
             }
             _masker.Mask(Context(message, ActorChannel), actor, _actor);
             _masker.Mask(Context(message, CriticChannel), critic, _critic);
@@ -189,56 +365,239 @@ public sealed class MaskedSumsScheme : IFederationScheme
         }
     }
 
-    private sealed class CoordinatorSide : ICoordinatorSchemeSide
+    private sealed class CoordinatorSide : ICoordinatorSchemeSide, ICoordinatorSchemeMessages
     {
+        private readonly MaskedSumsScheme _scheme;
         private readonly ICoordinatorSchemeSide _inner;
+        private readonly TotalCombiner _combiner;
+        private readonly int _n, _threshold;
+        private readonly byte[]?[] _mask, _share;
+        private readonly bool[] _excluded, _rejoining, _shared;
+        private bool _directorySent;
+        private int _round;
 
-        public CoordinatorSide(MaskedSumsScheme scheme, ICoordinatorSchemeSide inner, int households, int actorSums, int criticSums)
+        public CoordinatorSide(MaskedSumsScheme scheme, ICoordinatorSchemeSide inner, int households, int actorSums, int criticSums, int threshold)
         {
+            _scheme = scheme;
             _inner = inner;
-            PartialSums = new TotalCombiner(scheme, households, actorSums, criticSums);
+            _n = households;
+            _threshold = threshold;
+            _mask = new byte[]?[households];
+            _share = new byte[]?[households];
+            _excluded = new bool[households];
+            _rejoining = new bool[households];
+            _shared = new bool[households];
+            _combiner = new TotalCombiner(scheme, households, actorSums, criticSums, threshold);
         }
 
-        public IPartialSumsCombiner PartialSums { get; }
+        public IPartialSumsCombiner PartialSums => _combiner;
 
         public void AggregateUploads(IReadOnlyList<ReceivedUpload> uploads, Span<float> actorShared, Span<float> criticShared) =>
             _inner.AggregateUploads(uploads, actorShared, criticShared);
+
+        public bool TryReceive(int household, HouseholdMessage message, ReadOnlySpan<bool> dropped, Action<CoordinatorMessage> send)
+        {
+            switch (message.BodyCase)
+            {
+                case HouseholdMessage.BodyOneofCase.MaskedKeys:
+                    OnKeys(household, message.MaskedKeys, dropped, send);
+                    return true;
+                case HouseholdMessage.BodyOneofCase.KeyShares:
+                    OnShares(household, message.KeyShares, dropped, send);
+                    return true;
+                default:
+                    return false;
+            }
+        }
+
+        private void OnKeys(int m, MaskedSumsPublicKeys keys, ReadOnlySpan<bool> dropped, Action<CoordinatorMessage> send)
+        {
+            byte[] mask = keys.MaskKey.ToByteArray(), share = keys.ShareKey.ToByteArray();
+            CheckKey(mask, m, "mask");
+            CheckKey(share, m, "share");
+            if (!_directorySent)
+            {
+                if (_mask[m] is not null)
+                {
+                    throw new ProtocolException($"masked sums: household {m} sent its keys twice");
+                }
+                _mask[m] = mask;
+                _share[m] = share;
+                for (int k = 0; k < _n; k++)
+                {
+                    if (_mask[k] is null)
+                    {
+                        return;
+                    }
+                }
+                _directorySent = true;
+                _combiner.Start(_mask!, _scheme._sessionId);
+                send(new CoordinatorMessage { HouseholdIndex = -1, MaskedKeys = Directory(null) });
+                return;
+            }
+            if (!_rejoining[m])
+            {
+                throw new ProtocolException($"masked sums: household {m} sent new keys without rejoining");
+            }
+            if (dropped[m])
+            {
+                throw new ProtocolException($"masked sums: household {m} sent keys while dropped");
+            }
+            _rejoining[m] = false;
+            _mask[m] = mask;
+            _share[m] = share;
+            _excluded[m] = false;
+            _shared[m] = false;
+            _combiner.Replace(m, mask);
+            // The others learn the newcomer's keys; the newcomer gets the whole directory.
+            MaskedSumsKeys update = Directory(m);
+            for (int h = 0; h < _n; h++)
+            {
+                if (h != m && !dropped[h])
+                {
+                    send(new CoordinatorMessage { HouseholdIndex = h, MaskedKeys = update });
+                }
+            }
+            send(new CoordinatorMessage { HouseholdIndex = m, MaskedKeys = Directory(null) });
+        }
+
+        private void OnShares(int m, KeyShares shares, ReadOnlySpan<bool> dropped, Action<CoordinatorMessage> send)
+        {
+            if (!_directorySent || _rejoining[m] || _excluded[m])
+            {
+                throw new ProtocolException($"masked sums: household {m} sent key shares before its keys were in the directory");
+            }
+            if (_shared[m])
+            {
+                throw new ProtocolException($"masked sums: household {m} sent its key shares twice");
+            }
+            var seen = new bool[_n];
+            foreach (EncryptedKeyShare s in shares.Shares)
+            {
+                if (s.Owner != m || s.Holder < 0 || s.Holder >= _n || s.Holder == m || seen[s.Holder] || s.Ciphertext.Length != KeyShareCipher.CiphertextBytes)
+                {
+                    throw new ProtocolException($"masked sums: household {m} sent a key share of household {s.Owner} for {s.Holder} ({s.Ciphertext.Length} bytes); each share is its own, for one other household, {KeyShareCipher.CiphertextBytes} bytes");
+                }
+                seen[s.Holder] = true;
+            }
+            _shared[m] = true;
+            foreach (EncryptedKeyShare s in shares.Shares)
+            {
+                if (!dropped[s.Holder] && !_excluded[s.Holder])
+                {
+                    send(new CoordinatorMessage { HouseholdIndex = s.Holder, KeyShare = s });
+                }
+            }
+        }
+
+        public void BeginRound(int round, ReadOnlySpan<bool> dropped, Action<CoordinatorMessage> send)
+        {
+            _round = round;
+            _combiner.BeginRound();
+            var update = new MaskedSumsKeys { SessionId = Google.Protobuf.ByteString.CopyFrom(_scheme._sessionId), Threshold = _threshold, Round = round };
+            for (int k = 0; k < _n; k++)
+            {
+                if (dropped[k] && !_excluded[k])
+                {
+                    _excluded[k] = true;
+                    _combiner.Exclude(k);
+                    update.Entries.Add(new MaskedSumsKeyEntry { Household = k, Excluded = true });
+                }
+            }
+            if (update.Entries.Count > 0)
+            {
+                send(new CoordinatorMessage { HouseholdIndex = -1, MaskedKeys = update });
+            }
+        }
+
+        public void Rejoined(int household, int round)
+        {
+            if (!_directorySent)
+            {
+                throw new ProtocolException($"masked sums: household {household} rejoins before the key directory was complete");
+            }
+            _rejoining[household] = true;
+        }
+
+        /// <summary>The full directory (only = null) or the entry of one household.</summary>
+        private MaskedSumsKeys Directory(int? only)
+        {
+            var d = new MaskedSumsKeys { SessionId = Google.Protobuf.ByteString.CopyFrom(_scheme._sessionId), Threshold = _threshold, Round = _round };
+            for (int k = 0; k < _n; k++)
+            {
+                if (only is { } o && o != k)
+                {
+                    continue;
+                }
+                d.Entries.Add(_excluded[k]
+                    ? new MaskedSumsKeyEntry { Household = k, Excluded = true }
+                    : new MaskedSumsKeyEntry { Household = k, MaskKey = Google.Protobuf.ByteString.CopyFrom(_mask[k]), ShareKey = Google.Protobuf.ByteString.CopyFrom(_share[k]) });
+            }
+            return d;
+        }
     }
 
-    /// <summary>Sums the masked vectors in Z_2^64 and replies the decoded total to every household.</summary>
+    /// <summary>Sums the masked vectors in Z_2^64, recovers dropped households' masks from survivors' shares, and replies the decoded total.</summary>
     private sealed class TotalCombiner : IPartialSumsCombiner
     {
         private readonly MaskedSumsScheme _scheme;
-        private readonly int _households, _na, _nc;
+        private readonly int _households, _na, _nc, _threshold;
         private readonly double[] _actorTotal, _criticTotal;
         private readonly ulong[] _scratch;
+        private readonly bool[] _excluded, _unrecoverable;
+        private readonly List<int> _pending = [];
+        private readonly Dictionary<int, List<ShamirShare>> _shares = [];
         private MaskedSumUnmasker? _actor, _critic;
-        private bool _done;
+        private bool _hasTotal;
         private int _round;
         private long _step;
 
-        public TotalCombiner(MaskedSumsScheme scheme, int households, int actorSums, int criticSums)
+        public TotalCombiner(MaskedSumsScheme scheme, int households, int actorSums, int criticSums, int threshold)
         {
             _scheme = scheme;
             _households = households;
             _na = actorSums;
             _nc = criticSums;
+            _threshold = threshold;
             _actorTotal = new double[actorSums];
             _criticTotal = new double[criticSums];
             _scratch = new ulong[Math.Max(actorSums, criticSums)];
+            _excluded = new bool[households];
+            _unrecoverable = new bool[households];
+        }
+
+        public void Start(byte[][] maskKeys, byte[] sessionId)
+        {
+            FixedPointEncoding encoding = Encoding(_households);
+            _actor = new MaskedSumUnmasker(maskKeys, sessionId, encoding, _threshold, _na);
+            _critic = new MaskedSumUnmasker(maskKeys, sessionId, encoding, _threshold, _nc);
+        }
+
+        public void BeginRound() => Array.Clear(_unrecoverable);
+
+        public void Exclude(int household)
+        {
+            _excluded[household] = true;
+            _actor!.Exclude(household);
+            _critic!.Exclude(household);
+        }
+
+        public void Replace(int household, byte[] maskKey)
+        {
+            _actor!.Replace(household, maskKey);
+            _critic!.Replace(household, maskKey);
+            _excluded[household] = false;
         }
 
         public void Begin()
         {
             if (_actor is null)
             {
-                byte[][] keys = _scheme.PublicKeys();
-                FixedPointEncoding encoding = Encoding(_households);
-                _actor = new MaskedSumUnmasker(keys, _scheme._sessionId, encoding, _households, _na);
-                _critic = new MaskedSumUnmasker(keys, _scheme._sessionId, encoding, _households, _nc);
+                throw new ProtocolException("masked sums: partial sums before every household's keys are in the directory");
             }
-            _done = false;
             _round = -1;
+            _pending.Clear();
+            _shares.Clear();
         }
 
         public void Add(int household, PartialSums message)
@@ -247,33 +606,130 @@ public sealed class MaskedSumsScheme : IFederationScheme
             {
                 throw new ProtocolException($"masked sums: household {household} sent clear partial sums");
             }
+            if (_excluded[household] || _actor!.IsRevealed(household))
+            {
+                throw new ProtocolException($"masked sums: household {household} is out of the masks (dropped, its key rebuilt or excluded); it must rejoin with new keys");
+            }
             if (_round < 0)
             {
                 _round = message.Round;
                 _step = message.Step;
-                _actor!.Begin(Context(message, ActorChannel), _na);
+                _actor.Begin(Context(message, ActorChannel), _na);
                 _critic!.Begin(Context(message, CriticChannel), _nc);
             }
             else if (message.Round != _round || message.Step != _step)
             {
                 throw new ProtocolException($"masked sums: household {household} sent round {message.Round} step {message.Step} into round {_round} step {_step}");
             }
-            Take(_actor!, household, message.MaskedActor, _na, "actor");
+            Take(_actor, household, message.MaskedActor, _na, "actor");
             Take(_critic!, household, message.MaskedCritic, _nc, "critic");
+        }
+
+        public IReadOnlyList<int> SharesNeeded(IReadOnlyList<int> missing)
+        {
+            _pending.Clear();
+            bool lost = false;
+            foreach (int d in missing)
+            {
+                if (_excluded[d] || _actor!.IsRevealed(d))
+                {
+                    continue;
+                }
+                lost |= _unrecoverable[d];
+                _pending.Add(d);
+            }
+            if (lost)
+            {
+                return []; // the round is abandoned already: asking for shares would reveal keys for nothing
+            }
+            foreach (int d in _pending)
+            {
+                _shares[d] = [];
+            }
+            return _pending;
+        }
+
+        public void AddShares(int household, RecoveryShares message)
+        {
+            foreach (RevealedShare s in message.Shares)
+            {
+                if (!_shares.TryGetValue(s.Owner, out List<ShamirShare>? list))
+                {
+                    throw new ProtocolException($"masked sums: household {household} revealed a share of household {s.Owner}, which is not being recovered");
+                }
+                if (s.Value.Length != KeyShareCipher.ValueBytes)
+                {
+                    throw new ProtocolException($"masked sums: household {household}'s share of household {s.Owner} is {s.Value.Length} bytes; {KeyShareCipher.ValueBytes} expected");
+                }
+                foreach (ShamirShare earlier in list)
+                {
+                    if (earlier.Index == household + 1)
+                    {
+                        throw new ProtocolException($"masked sums: household {household} revealed its share of household {s.Owner} twice");
+                    }
+                }
+                list.Add(new ShamirShare(household + 1, new BigInteger(s.Value.Span, isUnsigned: true, isBigEndian: true)));
+            }
+        }
+
+        public SumsOutcome Close()
+        {
+            if (_round < 0)
+            {
+                throw new ProtocolException("masked sums: no partial sums in the step");
+            }
+            var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(_shares.Count);
+            foreach ((int d, List<ShamirShare> list) in _shares)
+            {
+                shares[d] = list;
+            }
+            MaskedSumResult a = _actor!.Complete(shares, _actorTotal);
+            MaskedSumResult c = _critic!.Complete(shares, _criticTotal);
+            _round = -1;
+            if (a.Status == MaskedSumStatus.Complete && c.Status == MaskedSumStatus.Complete)
+            {
+                _hasTotal = true;
+                _scheme.CompletedSums++;
+                return SumsOutcome.Complete;
+            }
+            if (a.HasTotal && c.HasTotal)
+            {
+                _hasTotal = true;
+                _scheme.RecoveredSums++;
+                int[] recovered = [.. _pending];
+                return recovered.Length == 0
+                    ? SumsOutcome.Complete // masks of households rebuilt in an earlier step of the round: removed as before
+                    : new SumsOutcome(true, recovered, [], $"masks of {recovered.Length} dropped households removed with the survivors' shares (threshold {_threshold}); {a.Survivors} survivors summed");
+            }
+            _hasTotal = false;
+            _scheme.AbandonedSums++;
+            foreach (int d in _pending)
+            {
+                _unrecoverable[d] = true;
+            }
+            var unrecovered = new List<int>();
+            for (int k = 0; k < _households; k++)
+            {
+                if (_unrecoverable[k])
+                {
+                    unrecovered.Add(k);
+                }
+            }
+            return new SumsOutcome(false, [], unrecovered, $"no total for the step: {(a.HasTotal ? c.Reason : a.Reason)}; the round's later steps have none either");
         }
 
         public void WriteReply(int household, SumsReply reply)
         {
-            if (!_done)
-            {
-                Complete(_actor!, _actorTotal, "actor");
-                Complete(_critic!, _criticTotal, "critic");
-                _scheme.CompletedSums++;
-                _done = true;
-            }
-            reply.Kind = SumsKind.Total;
             reply.Actor.Clear();
             reply.Critic.Clear();
+            if (!_hasTotal)
+            {
+                reply.Kind = SumsKind.Abandoned;
+                reply.TotalActor.Clear();
+                reply.TotalCritic.Clear();
+                return;
+            }
+            reply.Kind = SumsKind.Total;
             Fill(reply.TotalActor, _actorTotal);
             Fill(reply.TotalCritic, _criticTotal);
         }
@@ -290,15 +746,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
                 v[i] = values[i];
             }
             unmasker.Add(household, v);
-        }
-
-        private static void Complete(MaskedSumUnmasker unmasker, double[] total, string what)
-        {
-            MaskedSumResult r = unmasker.Complete(null, total);
-            if (r.Status != MaskedSumStatus.Complete)
-            {
-                throw new ProtocolException($"masked sums: the {what} sum of this step is {r.Status}: {r.Reason}");
-            }
         }
 
         private static void Fill(Google.Protobuf.Collections.RepeatedField<double> target, double[] values)

@@ -169,21 +169,35 @@ public static class PairwiseMask
     /// <param name="i">One household index.</param>
     /// <param name="j">The other household index (≠ i).</param>
     /// <returns>32-byte key, the same from both sides.</returns>
-    public static byte[] DeriveKey(MaskingKeyPair own, ReadOnlySpan<byte> peerPublicKey, ReadOnlySpan<byte> sessionId, int i, int j)
+    public static byte[] DeriveKey(MaskingKeyPair own, ReadOnlySpan<byte> peerPublicKey, ReadOnlySpan<byte> sessionId, int i, int j) =>
+        Agree(own, peerPublicKey, sessionId, InfoLabel, Math.Min(i, j), Math.Max(i, j));
+
+    /// <summary>
+    /// P-256 Diffie–Hellman between <paramref name="own"/> and a peer's public key, then HKDF-SHA256 (RFC 5869) with the
+    /// session as salt and info = <paramref name="label"/> ‖ first ‖ second (big-endian 32-bit) into a 32-byte key.
+    /// </summary>
+    /// <param name="own">This side's key pair.</param>
+    /// <param name="peerPublicKey">The other side's public key.</param>
+    /// <param name="sessionId">HKDF salt.</param>
+    /// <param name="label">What the key is for.</param>
+    /// <param name="first">First household index of the info.</param>
+    /// <param name="second">Second household index (≠ first).</param>
+    /// <returns>32-byte key.</returns>
+    internal static byte[] Agree(MaskingKeyPair own, ReadOnlySpan<byte> peerPublicKey, ReadOnlySpan<byte> sessionId, ReadOnlySpan<byte> label, int first, int second)
     {
         ArgumentNullException.ThrowIfNull(own);
-        if (i == j || i < 0 || j < 0)
+        if (first == second || first < 0 || second < 0)
         {
-            throw new ArgumentException($"a mask pair needs two distinct non-negative households; got {i} and {j}");
+            throw new ArgumentException($"a key pair agreement needs two distinct non-negative households; got {first} and {second}");
         }
         ECDiffieHellmanPublicKey peer = MaskingKeyPair.ImportPublic(peerPublicKey, out ECDiffieHellman holder);
         try
         {
             byte[] shared = own.Key.DeriveRawSecretAgreement(peer);
-            Span<byte> info = stackalloc byte[InfoLabel.Length + 8];
-            InfoLabel.CopyTo(info);
-            BinaryPrimitives.WriteInt32BigEndian(info[InfoLabel.Length..], Math.Min(i, j));
-            BinaryPrimitives.WriteInt32BigEndian(info[(InfoLabel.Length + 4)..], Math.Max(i, j));
+            Span<byte> info = stackalloc byte[label.Length + 8];
+            label.CopyTo(info);
+            BinaryPrimitives.WriteInt32BigEndian(info[label.Length..], first);
+            BinaryPrimitives.WriteInt32BigEndian(info[(label.Length + 4)..], second);
             var key = new byte[32];
             Span<byte> prk = stackalloc byte[32];
             HKDF.Extract(HashAlgorithmName.SHA256, shared, sessionId, prk);
@@ -241,22 +255,25 @@ public static class PairwiseMask
 }
 
 /// <summary>
-/// Household m's side of masked sums: masked = encode(x) + Σ_{k&gt;m} mask(m,k) − Σ_{k&lt;m} mask(k,m) (mod 2^64).
-/// The pair keys are agreed once in the constructor; each call allocates nothing.
+/// Household m's side of masked sums: masked = encode(x) + Σ_{k&gt;m} mask(m,k) − Σ_{k&lt;m} mask(k,m) (mod 2^64), over
+/// the households k that take part (not excluded). The pair keys are agreed in the constructor, and again for one peer
+/// when it comes back with new keys (<see cref="Replace"/>); each masking call allocates nothing.
 /// </summary>
 public sealed class PairwiseMasker : IDisposable
 {
     private readonly AesCtr?[] _pairs;
     private readonly ulong[] _scratch;
+    private readonly MaskingKeyPair _keys;
+    private readonly byte[] _sessionId;
 
     /// <summary>Agrees a key with every other household.</summary>
     /// <param name="household">m.</param>
     /// <param name="keys">m's key pair.</param>
-    /// <param name="publicKeys">Every household's public key, by index (m's own included).</param>
+    /// <param name="publicKeys">Every household's public key, by index (m's own included); null for a household that does not take part.</param>
     /// <param name="sessionId">Key-agreement session (HKDF salt).</param>
     /// <param name="encoding">The fixed-point encoding shared by all households.</param>
     /// <param name="maxLength">Longest vector masked.</param>
-    public PairwiseMasker(int household, MaskingKeyPair keys, IReadOnlyList<byte[]> publicKeys, ReadOnlySpan<byte> sessionId, FixedPointEncoding encoding, int maxLength)
+    public PairwiseMasker(int household, MaskingKeyPair keys, IReadOnlyList<byte[]?> publicKeys, ReadOnlySpan<byte> sessionId, FixedPointEncoding encoding, int maxLength)
     {
         ArgumentNullException.ThrowIfNull(keys);
         ArgumentNullException.ThrowIfNull(publicKeys);
@@ -269,25 +286,49 @@ public sealed class PairwiseMasker : IDisposable
         {
             throw new ArgumentException($"{publicKeys.Count} households exceed the encoding's overflow bound of {encoding.MaxParticipants} participants", nameof(publicKeys));
         }
-        if (!CryptographicOperations.FixedTimeEquals(publicKeys[household], keys.PublicKey))
+        if (publicKeys[household] is not { } ownKey || !CryptographicOperations.FixedTimeEquals(ownKey, keys.PublicKey))
         {
             throw new ArgumentException($"public key {household} is not this household's own", nameof(publicKeys));
         }
         ArgumentOutOfRangeException.ThrowIfNegative(maxLength);
         Household = household;
         Encoding = encoding;
+        _keys = keys;
+        _sessionId = sessionId.ToArray();
         _scratch = new ulong[maxLength];
         _pairs = new AesCtr?[publicKeys.Count];
         for (int k = 0; k < publicKeys.Count; k++)
         {
-            if (k != household)
+            if (k != household && publicKeys[k] is { } peer)
             {
-                byte[] key = PairwiseMask.DeriveKey(keys, publicKeys[k], sessionId, household, k);
-                _pairs[k] = new AesCtr(key);
-                CryptographicOperations.ZeroMemory(key);
+                Replace(k, peer);
             }
         }
     }
+
+    /// <summary>Takes household k out of the masks (it no longer takes part).</summary>
+    /// <param name="peer">k.</param>
+    public void Exclude(int peer)
+    {
+        _pairs[peer]?.Dispose();
+        _pairs[peer] = null;
+    }
+
+    /// <summary>Agrees a new pair key with household k (it came back with a new public key).</summary>
+    /// <param name="peer">k (≠ m).</param>
+    /// <param name="publicKey">Its new public key.</param>
+    public void Replace(int peer, ReadOnlySpan<byte> publicKey)
+    {
+        byte[] key = PairwiseMask.DeriveKey(_keys, publicKey, _sessionId, Household, peer);
+        Exclude(peer);
+        _pairs[peer] = new AesCtr(key);
+        CryptographicOperations.ZeroMemory(key);
+    }
+
+    /// <summary>Whether household k takes part in the masks.</summary>
+    /// <param name="peer">k.</param>
+    /// <returns>True when a pair key is agreed with it.</returns>
+    public bool Includes(int peer) => _pairs[peer] is not null;
 
     /// <summary>m.</summary>
     public int Household { get; }

@@ -93,7 +93,18 @@ public interface ICoordinatorProjectionSide
     /// <returns>Whether it was this form's message.</returns>
     bool TryAdd(int household, HouseholdMessage message);
 
-    /// <summary>Projects the step once every household was added.</summary>
+    /// <summary>Whether the form can project a step without some households' inputs (<see cref="AddDropped"/>).</summary>
+    bool SupportsDropouts => false;
+
+    /// <summary>
+    /// Stands in for a dropped household whose inputs will not come: the form holds it at a conservative fixed load
+    /// (household form: the desired power and base load it last reported).
+    /// </summary>
+    /// <param name="household">The dropped household.</param>
+    void AddDropped(int household) =>
+        throw new ProtocolException($"this projection form cannot project without household {household}'s inputs");
+
+    /// <summary>Projects the step once every household was added (or stood in for).</summary>
     /// <returns>The projection's result (owned by the side, overwritten next step).</returns>
     ProjectionResult Project();
 
@@ -188,7 +199,8 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
         private readonly ProjectionResult _result;
         private readonly double[] _fixedKw, _fixedKvar, _tanPhi;
         private readonly int[] _bus;
-        private readonly bool[] _seen;
+        private readonly bool[] _seen, _known;
+        private readonly double[] _lastMaxKw, _lastBaseKw;
         private readonly FinalSetpoint[] _replies;
 
         public CoordinatorSide(Feeder feeder, IReadOnlyList<RegisteredHousehold> households, IReadOnlyList<(string BusId, double Kw, double Kvar)> fixedLoads, ProjectionOptions? options)
@@ -216,6 +228,9 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
                 _fixedKvar[b] += kvar;
             }
             _seen = new bool[units.Length];
+            _known = new bool[units.Length];
+            _lastMaxKw = new double[units.Length];
+            _lastBaseKw = new double[units.Length];
             _replies = new FinalSetpoint[units.Length];
             for (int i = 0; i < _replies.Length; i++)
             {
@@ -255,7 +270,32 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
             _input.ProposalKw[household] = Math.Clamp(p.ProposalKw, p.FlexMinKw, p.FlexMaxKw);
             _input.BaseLoadKw[_bus[household]] += p.BaseKw;
             _input.BaseLoadKvar[_bus[household]] += p.BaseKw * _tanPhi[household];
+            _known[household] = true;
+            _lastMaxKw[household] = p.FlexMaxKw;
+            _lastBaseKw[household] = p.BaseKw;
             return true;
+        }
+
+        public bool SupportsDropouts => true;
+
+        /// <summary>
+        /// The dropped household as a fixed load: flexible power pinned to the desired (largest) power of its last report,
+        /// base load as last reported (0 kW before any report). Conservative for feeder limits against load as long as
+        /// its load does not rise above that report; see the coordinator's notes on dropouts.
+        /// </summary>
+        public void AddDropped(int household)
+        {
+            if (_seen[household])
+            {
+                throw new ProtocolException($"household {household} sent its projection inputs; it cannot also be stood in for");
+            }
+            _seen[household] = true;
+            double flex = _known[household] ? _lastMaxKw[household] : 0, baseKw = _known[household] ? _lastBaseKw[household] : 0;
+            _input.MinKw[household] = flex;
+            _input.MaxKw[household] = flex;
+            _input.ProposalKw[household] = flex;
+            _input.BaseLoadKw[_bus[household]] += baseKw;
+            _input.BaseLoadKvar[_bus[household]] += baseKw * _tanPhi[household];
         }
 
         public ProjectionResult Project()

@@ -44,7 +44,37 @@ public sealed record FederatedRunOptions
     /// testing robust aggregation), or null. Called with the household index and the message before delivery.
     /// </summary>
     public Action<int, ParameterUpload>? SimulatedUploadTamper { get; init; }
+
+    /// <summary>
+    /// Probability, per decision step and online household, that the household goes offline before sending its partial
+    /// sums (drawn from the seed; the simulation always keeps one household online). The step then closes at its deadline
+    /// (<see cref="Coordinator.CloseStep"/>) without it.
+    /// </summary>
+    public double StepDropout { get; init; }
+
+    /// <summary>Scripted per-step dropouts: household h goes offline at step s (counted over the run) at the given point.</summary>
+    public IReadOnlyList<ScriptedDropout> ScriptedDropouts { get; init; } = [];
+
+    /// <summary>Whether a household that went offline comes back (<see cref="HouseholdAgent.Rejoin"/>) at the next round's start; otherwise it stays offline.</summary>
+    public bool RejoinAfterDropout { get; init; } = true;
 }
+
+/// <summary>Where in a decision step a simulated household goes offline.</summary>
+public enum DropoutPoint
+{
+    /// <summary>Before it sends the step's partial sums.</summary>
+    BeforePartialSums,
+    /// <summary>After its partial sums, before its projection inputs.</summary>
+    BeforeProjectionInputs,
+    /// <summary>Masked sums: after its partial sums, before it answers a recovery request (it never answers).</summary>
+    BeforeRecoveryShares,
+}
+
+/// <summary>A scripted dropout of the in-process simulation.</summary>
+/// <param name="Household">Household index.</param>
+/// <param name="Step">Decision step, counted over the run (its round is step / steps per round).</param>
+/// <param name="Point">Where in the step.</param>
+public sealed record ScriptedDropout(int Household, long Step, DropoutPoint Point = DropoutPoint.BeforePartialSums);
 
 /// <summary>What a federated run produced.</summary>
 /// <param name="Run">Days, decision steps, updates, wall time (as the centralized trainer reports them).</param>
@@ -66,6 +96,12 @@ public sealed record FederatedRunResult(TrainingRun Run, string Scheme, int Roun
 /// a transport would deliver them; households read only their own slice of the world. The households' round-end
 /// training runs in parallel (each works on its own data; results are delivered in household order, so a seed gives the
 /// same run). Deterministic per seed.
+/// <para>
+/// Simulated per-step dropouts (<see cref="FederatedRunOptions.StepDropout"/>, <see cref="FederatedRunOptions.ScriptedDropouts"/>):
+/// an offline household's messages are lost both ways, the runner closes the step at its deadline, and the offline
+/// gateway no longer controls its flexible load: the world runs it at the desired power (no curtailment) until the
+/// household rejoins at a later round's start.
+/// </para>
 /// </summary>
 public sealed class InProcessFederation : ICoordinatorOutbox
 {
@@ -80,7 +116,10 @@ public sealed class InProcessFederation : ICoordinatorOutbox
     private readonly float[] _state, _actions, _costs;
     private readonly double[] _truthBase, _truthMin, _truthDes;
     private readonly HouseholdMessage?[] _replies;
-    private readonly LearningRandom _dropout;
+    private readonly LearningRandom _dropout, _stepDropout;
+    private readonly bool[] _offline;
+    private readonly DropoutPoint?[] _dropAt;
+    private int _online;
     private GroundTruthWriter? _truth;
     private long _wireBytes, _step;
     private int _dayProjections, _dayUnverified, _dayInfeasible, _dayFailures;
@@ -136,6 +175,25 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         _truthDes = new double[n];
         _replies = new HouseholdMessage?[n];
         _dropout = new LearningRandom(LearningRandom.DeriveSeed(fed.Learning.Seed, 0xD809UL));
+        _stepDropout = new LearningRandom(LearningRandom.DeriveSeed(fed.Learning.Seed, 0x57E9D809UL));
+        _offline = new bool[n];
+        _dropAt = new DropoutPoint?[n];
+        _online = n;
+        if (!(options.StepDropout >= 0 && options.StepDropout < 1))
+        {
+            throw new ArgumentOutOfRangeException(nameof(options), options.StepDropout, "StepDropout must lie in [0, 1)");
+        }
+        if ((options.StepDropout > 0 || options.ScriptedDropouts.Count > 0) && form is BusAggregateProjectionInputs)
+        {
+            throw new ArgumentException($"per-step dropouts are not supported with '{BusAggregateProjectionInputs.FormName}' projection inputs (a missing household's bus masks would not cancel)", nameof(options));
+        }
+        foreach (ScriptedDropout d in options.ScriptedDropouts)
+        {
+            if (d.Household < 0 || d.Household >= n || d.Step < 0)
+            {
+                throw new ArgumentOutOfRangeException(nameof(options), d, $"scripted dropout names household {d.Household} (0 … {n - 1}) at step {d.Step}");
+            }
+        }
         for (int m = 0; m < n; m++)
         {
             Household h = scenario.Households[m];
@@ -187,18 +245,26 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         int size = message.CalculateSize();
         if (message.HouseholdIndex == -1)
         {
-            _wireBytes += (long)size * _agents.Length;
-            foreach (HouseholdAgent a in _agents)
+            for (int m = 0; m < _agents.Length; m++)
             {
-                Enqueue(a.Receive(message));
+                if (!_offline[m])
+                {
+                    _wireBytes += size;
+                    Enqueue(m, _agents[m].Receive(message));
+                }
             }
         }
-        else
+        else if (!_offline[message.HouseholdIndex])
         {
             _wireBytes += size;
-            Enqueue(_agents[message.HouseholdIndex].Receive(message));
+            Enqueue(message.HouseholdIndex, _agents[message.HouseholdIndex].Receive(message));
         }
     }
+
+    /// <summary>Whether household m is offline in the simulation (dropped out, not back yet).</summary>
+    /// <param name="household">m.</param>
+    /// <returns>True when offline.</returns>
+    public bool IsOffline(int household) => _offline[household];
 
     /// <summary>Decision steps taken so far.</summary>
     public long StepCount => _step;
@@ -245,11 +311,30 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         long step = _step;
         _task.Observe(_state);
         ReadOnlySpan<double> baseKw = _task.Environment.BaseKw, min = _task.Environment.FlexMinKw, des = _task.Environment.FlexDesiredKw;
+        bool dropouts = _options.StepDropout > 0 || _options.ScriptedDropouts.Count > 0;
+        if (dropouts)
+        {
+            PlanDropouts(step);
+        }
         for (int m = 0; m < n; m++)
         {
+            if (_offline[m])
+            {
+                continue;
+            }
+            if (_dropAt[m] == DropoutPoint.BeforePartialSums)
+            {
+                GoOffline(m);
+                continue;
+            }
             Deliver(_agents[m].BeginStep(step, _state.AsSpan(m * features, features), min[m], des[m], baseKw[m]));
         }
         Drain();
+        while (Coordinator.StepOpen)
+        {
+            Coordinator.CloseStep(this); // the step's deadline: the coordinator goes on without the offline households
+            Drain();
+        }
         ProjectionResult p = Coordinator.LastProjection!;
         switch (p.Status)
         {
@@ -260,7 +345,8 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         }
         for (int m = 0; m < n; m++)
         {
-            _actions[m] = (float)_agents[m].Setpoint;
+            // An offline gateway no longer curtails: its appliance runs at the desired power.
+            _actions[m] = _offline[m] ? (float)des[m] : (float)_agents[m].Setpoint;
         }
         int slot = _task.Environment.Slot;
         if (_truth is not null)
@@ -276,13 +362,13 @@ public sealed class InProcessFederation : ICoordinatorOutbox
             {
                 Household h = _scenario.Households[m];
                 _truth.Write(step, _task.Day + 1, h.Id, m, h.BusId, _truthBase[m], _truthMin[m], _truthDes[m], _scenario.Traces[m].Occupied[slot],
-                    _agents[m].Proposal, _task.LastStep.HouseholdKw[m] - _truthBase[m], _costs[m]);
+                    _offline[m] ? _truthDes[m] : _agents[m].Proposal, _task.LastStep.HouseholdKw[m] - _truthBase[m], _costs[m]);
             }
         }
         bool roundEnd = (step + 1) % fed.StepsPerRound == 0;
         if (roundEnd)
         {
-            Parallel.For(0, n, m => _replies[m] = _agents[m].CompleteStep(_costs[m]));
+            Parallel.For(0, n, m => _replies[m] = _offline[m] ? null : _agents[m].CompleteStep(_costs[m]));
             bool lost = false;
             for (int m = 0; m < n; m++)
             {
@@ -306,12 +392,28 @@ public sealed class InProcessFederation : ICoordinatorOutbox
                 Coordinator.CloseRound(this);
                 Drain();
             }
+            if (_online < n && _options.RejoinAfterDropout && Coordinator.Phase == CoordinatorPhase.CollectingPartialSums)
+            {
+                for (int m = 0; m < n; m++)
+                {
+                    if (_offline[m])
+                    {
+                        _offline[m] = false;
+                        _online++;
+                        Deliver(_agents[m].Rejoin());
+                        Drain();
+                    }
+                }
+            }
         }
         else
         {
             for (int m = 0; m < n; m++)
             {
-                Deliver(_agents[m].CompleteStep(_costs[m]));
+                if (!_offline[m])
+                {
+                    Deliver(_agents[m].CompleteStep(_costs[m]));
+                }
             }
             Drain();
         }
@@ -361,12 +463,56 @@ public sealed class InProcessFederation : ICoordinatorOutbox
             Coordinator.FailedRounds, transcriptBytes, Writer?.RecordCount ?? 0, _wireBytes, _wireBytes / (double)(n * Math.Max(1, _step)));
     }
 
-    private void Enqueue(HouseholdMessage? message)
+    private void PlanDropouts(long step)
     {
-        if (message is not null)
+        Array.Clear(_dropAt);
+        foreach (ScriptedDropout d in _options.ScriptedDropouts)
         {
-            _inbox.Enqueue(message);
+            if (d.Step == step && !_offline[d.Household])
+            {
+                _dropAt[d.Household] = d.Point;
+            }
         }
+        if (_options.StepDropout > 0)
+        {
+            int planned = 0;
+            for (int m = 0; m < _agents.Length; m++)
+            {
+                planned += _dropAt[m] is null ? 0 : 1;
+            }
+            for (int m = 0; m < _agents.Length; m++)
+            {
+                bool draw = _stepDropout.NextDouble() < _options.StepDropout; // one draw per household and step: the stream does not depend on who is online
+                if (draw && !_offline[m] && _dropAt[m] is null && _online - planned > 1)
+                {
+                    _dropAt[m] = DropoutPoint.BeforePartialSums;
+                    planned++;
+                }
+            }
+        }
+    }
+
+    private void GoOffline(int m)
+    {
+        _offline[m] = true;
+        _online--;
+        _dropAt[m] = null;
+    }
+
+    private void Enqueue(int household, HouseholdMessage? message)
+    {
+        if (message is null)
+        {
+            return;
+        }
+        DropoutPoint? at = _dropAt[household];
+        if ((at == DropoutPoint.BeforeProjectionInputs && message.BodyCase is HouseholdMessage.BodyOneofCase.ProjectionInputs or HouseholdMessage.BodyOneofCase.BusShares)
+            || (at == DropoutPoint.BeforeRecoveryShares && message.BodyCase == HouseholdMessage.BodyOneofCase.RecoveryShares))
+        {
+            GoOffline(household); // the message is lost with the household
+            return;
+        }
+        _inbox.Enqueue(message);
     }
 
     private void Deliver(HouseholdMessage? message)

@@ -69,6 +69,52 @@ public interface IHouseholdSchemeSide
     void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared)
     {
     }
+
+    /// <summary>
+    /// Writes the scheme's own message that follows admission (<paramref name="afterRejoin"/> false) or the model that
+    /// follows a rejoin (true) — masked sums: fresh public keys. False when the scheme sends none (the default).
+    /// </summary>
+    /// <param name="afterRejoin">Whether the household is coming back after a dropout.</param>
+    /// <param name="message">The outgoing message (its body is set when true is returned).</param>
+    /// <returns>Whether there is a message to send.</returns>
+    bool TryWriteKeys(bool afterRejoin, HouseholdMessage message) => false;
+
+    /// <summary>Takes a coordinator message of the scheme (key directory, relayed share, recovery request); false when it is not one.</summary>
+    /// <param name="message">The message.</param>
+    /// <param name="reply">The outgoing message, filled when <paramref name="hasReply"/> is set.</param>
+    /// <param name="hasReply">Whether <paramref name="reply"/> is to be sent.</param>
+    /// <returns>Whether the message was the scheme's.</returns>
+    bool TryReceive(CoordinatorMessage message, HouseholdMessage reply, out bool hasReply)
+    {
+        hasReply = false;
+        return false;
+    }
+}
+
+/// <summary>
+/// A coordinator scheme side that exchanges messages of its own besides partial sums and uploads (masked sums: key
+/// agreement and dropout recovery). Everything it sends goes through <c>send</c>, which records it in the transcript.
+/// </summary>
+public interface ICoordinatorSchemeMessages
+{
+    /// <summary>Takes a household message of the scheme (not partial sums, projection inputs or uploads); false when it is not one.</summary>
+    /// <param name="household">Sender.</param>
+    /// <param name="message">The message (read during the call, not kept).</param>
+    /// <param name="dropped">Households currently dropped (out of the round).</param>
+    /// <param name="send">Sends one coordinator message (may be reused after the call).</param>
+    /// <returns>Whether it was the scheme's message.</returns>
+    bool TryReceive(int household, HouseholdMessage message, ReadOnlySpan<bool> dropped, Action<CoordinatorMessage> send);
+
+    /// <summary>A round begins (after the model broadcast); <paramref name="dropped"/> households are still out.</summary>
+    /// <param name="round">The new round.</param>
+    /// <param name="dropped">Households dropped and not (yet) back.</param>
+    /// <param name="send">Sends one coordinator message.</param>
+    void BeginRound(int round, ReadOnlySpan<bool> dropped, Action<CoordinatorMessage> send);
+
+    /// <summary>A dropped household was admitted back at the start of <paramref name="round"/>.</summary>
+    /// <param name="household">It.</param>
+    /// <param name="round">The round.</param>
+    void Rejoined(int household, int round);
 }
 
 /// <summary>The coordinator's part of a scheme.</summary>
@@ -102,10 +148,40 @@ public interface IPartialSumsCombiner
     /// <param name="message">Its message (read during the call, not kept).</param>
     void Add(int household, PartialSums message);
 
-    /// <summary>Writes the reply for household m (after every household of the step was added).</summary>
+    /// <summary>Writes the reply for household m (after <see cref="Close"/>).</summary>
     /// <param name="household">m.</param>
     /// <param name="reply">The reply; its vectors are cleared and refilled.</param>
     void WriteReply(int household, SumsReply reply);
+
+    /// <summary>
+    /// After a step's deadline: which of the <paramref name="missing"/> households need their masks recovered from the
+    /// survivors' shares before the sum can be completed (masked sums); empty for schemes whose sum over the households
+    /// that arrived is complete by itself (the default).
+    /// </summary>
+    /// <param name="missing">Households of the step whose partial sums did not arrive.</param>
+    /// <returns>Households whose shares the survivors must reveal.</returns>
+    IReadOnlyList<int> SharesNeeded(IReadOnlyList<int> missing) => [];
+
+    /// <summary>Takes a survivor's revealed shares (masked sums).</summary>
+    /// <param name="household">The survivor.</param>
+    /// <param name="message">Its shares.</param>
+    void AddShares(int household, RecoveryShares message) =>
+        throw new ProtocolException($"household {household} sent recovery shares, which this scheme does not use");
+
+    /// <summary>Ends the step's combination once every household was added or the deadline passed (and any recovery is done).</summary>
+    /// <returns>How it ended.</returns>
+    SumsOutcome Close() => SumsOutcome.Complete;
+}
+
+/// <summary>How a step's combination of partial sums ended.</summary>
+/// <param name="HasTotal">False: no sum for the step (masked sums below the threshold); replies say so, never a wrong sum.</param>
+/// <param name="Recovered">Dropped households whose masks were removed from the sum.</param>
+/// <param name="Unrecovered">Dropped households whose masks could not be removed (when <paramref name="HasTotal"/> is false).</param>
+/// <param name="Detail">What happened, for the transcript (null when nothing out of the ordinary).</param>
+public sealed record SumsOutcome(bool HasTotal, IReadOnlyList<int> Recovered, IReadOnlyList<int> Unrecovered, string? Detail)
+{
+    /// <summary>Every household that was expected arrived, or the sum over those that did is complete by itself.</summary>
+    public static SumsOutcome Complete { get; } = new(true, [], [], null);
 }
 
 /// <summary>How a round's shared parameters are combined from the uploads (FedAvg; robust rules plug in here).</summary>

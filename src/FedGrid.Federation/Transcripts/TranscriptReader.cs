@@ -34,6 +34,14 @@ public enum RecordKind
     BusCorrection,
     /// <summary>Sent <see cref="Wire.BusPeers"/>.</summary>
     BusPeers,
+    /// <summary>Received <see cref="RejoinRequest"/> (back after a step dropout).</summary>
+    Rejoin,
+    /// <summary>Masked sums: received <see cref="MaskedSumsPublicKeys"/> or sent <see cref="Wire.MaskedSumsKeys"/> (key directory).</summary>
+    MaskedKeys,
+    /// <summary>Masked sums: received <see cref="Wire.KeyShares"/> or sent (relayed) <see cref="EncryptedKeyShare"/>.</summary>
+    KeyShares,
+    /// <summary>Masked sums: sent <see cref="Wire.RecoveryRequest"/> or received <see cref="Wire.RecoveryShares"/>.</summary>
+    Recovery,
 }
 
 /// <summary>Helpers on transcript records.</summary>
@@ -54,6 +62,10 @@ public static class TranscriptRecords
                 HouseholdMessage.BodyOneofCase.ProjectionInputs => RecordKind.ProjectionInputs,
                 HouseholdMessage.BodyOneofCase.Upload => RecordKind.Upload,
                 HouseholdMessage.BodyOneofCase.BusShares => RecordKind.BusShares,
+                HouseholdMessage.BodyOneofCase.Rejoin => RecordKind.Rejoin,
+                HouseholdMessage.BodyOneofCase.MaskedKeys => RecordKind.MaskedKeys,
+                HouseholdMessage.BodyOneofCase.KeyShares => RecordKind.KeyShares,
+                HouseholdMessage.BodyOneofCase.RecoveryShares => RecordKind.Recovery,
                 _ => RecordKind.Unknown,
             },
             TranscriptRecord.EntryOneofCase.Sent => record.Sent.BodyCase switch
@@ -65,6 +77,9 @@ public static class TranscriptRecords
                 CoordinatorMessage.BodyOneofCase.Training => RecordKind.Training,
                 CoordinatorMessage.BodyOneofCase.BusCorrection => RecordKind.BusCorrection,
                 CoordinatorMessage.BodyOneofCase.BusPeers => RecordKind.BusPeers,
+                CoordinatorMessage.BodyOneofCase.MaskedKeys => RecordKind.MaskedKeys,
+                CoordinatorMessage.BodyOneofCase.KeyShare => RecordKind.KeyShares,
+                CoordinatorMessage.BodyOneofCase.RecoveryRequest => RecordKind.Recovery,
                 _ => RecordKind.Unknown,
             },
             TranscriptRecord.EntryOneofCase.Event => RecordKind.Event,
