@@ -54,21 +54,57 @@ public sealed class Adam : IOptimiser
     /// <inheritdoc />
     public void Step(Span<float> parameters, ReadOnlySpan<float> gradient)
     {
+        CheckLengths(parameters, gradient);
+        Advance(out double c1, out double c2);
+        Update(parameters, gradient, 0, parameters.Length, c1, c2);
+    }
+
+    /// <inheritdoc />
+    public void Step(Span<float> parameters, ReadOnlySpan<float> gradient, ReadOnlySpan<(int Offset, int Length)> ranges)
+    {
+        CheckLengths(parameters, gradient);
+        foreach (var (o, n) in ranges)
+        {
+            ArgumentOutOfRangeException.ThrowIfNegative(o);
+            ArgumentOutOfRangeException.ThrowIfNegative(n);
+            ArgumentOutOfRangeException.ThrowIfGreaterThan(o + n, _m.Length);
+        }
+        Advance(out double c1, out double c2);
+        foreach (var (o, n) in ranges)
+        {
+            Update(parameters, gradient, o, n, c1, c2);
+        }
+    }
+
+    private void CheckLengths(Span<float> parameters, ReadOnlySpan<float> gradient)
+    {
         if (parameters.Length != _m.Length || gradient.Length != _m.Length)
         {
             throw new ArgumentException($"Adam was sized for {_m.Length} parameters.");
         }
+    }
+
+    private void Advance(out double c1, out double c2)
+    {
         StepCount++;
         _beta1Power *= Beta1;
         _beta2Power *= Beta2;
-        double c1 = 1.0 / (1.0 - _beta1Power), c2 = 1.0 / (1.0 - _beta2Power);
+        c1 = 1.0 / (1.0 - _beta1Power);
+        c2 = 1.0 / (1.0 - _beta2Power);
+    }
+
+    private void Update(Span<float> parameters, ReadOnlySpan<float> gradient, int offset, int length, double c1, double c2)
+    {
         double b1 = Beta1, b2 = Beta2, lr = LearningRate, eps = Epsilon;
-        for (int i = 0; i < parameters.Length; i++)
+        Span<float> p = parameters.Slice(offset, length);
+        ReadOnlySpan<float> gs = gradient.Slice(offset, length);
+        Span<double> ms = _m.AsSpan(offset, length), vs = _v.AsSpan(offset, length);
+        for (int i = 0; i < p.Length; i++)
         {
-            double g = gradient[i];
-            double m = _m[i] = b1 * _m[i] + (1 - b1) * g;
-            double v = _v[i] = b2 * _v[i] + (1 - b2) * g * g;
-            parameters[i] = (float)(parameters[i] - lr * (m * c1) / (Math.Sqrt(v * c2) + eps));
+            double g = gs[i];
+            double m = ms[i] = b1 * ms[i] + (1 - b1) * g;
+            double v = vs[i] = b2 * vs[i] + (1 - b2) * g * g;
+            p[i] = (float)(p[i] - lr * (m * c1) / (Math.Sqrt(v * c2) + eps));
         }
     }
 

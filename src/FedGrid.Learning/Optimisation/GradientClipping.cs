@@ -29,4 +29,44 @@ public static class GradientClipping
         }
         return norm;
     }
+
+    /// <summary>
+    /// <see cref="ClipGlobalNorm(Span{float}, double)"/> for a gradient that is zero outside <paramref name="ranges"/>, at a
+    /// cost proportional to their length. With the ranges in ascending order the norm is accumulated over the same
+    /// non-zero terms in the same order (the skipped zeros add nothing), so the norm and the scaled gradient equal the
+    /// full computation's bit for bit; the zeros outside stay zero.
+    /// </summary>
+    /// <param name="gradient">Gradient, scaled in place inside the ranges; zero outside them.</param>
+    /// <param name="maxNorm">Largest allowed norm (&gt; 0).</param>
+    /// <param name="ranges">(offset, length) ranges in ascending order, not overlapping.</param>
+    /// <returns>The norm before clipping.</returns>
+    public static double ClipGlobalNorm(Span<float> gradient, double maxNorm, ReadOnlySpan<(int Offset, int Length)> ranges)
+    {
+        ArgumentOutOfRangeException.ThrowIfNegativeOrZero(maxNorm);
+        double sum = 0;
+        int end = 0;
+        foreach (var (o, n) in ranges)
+        {
+            if (o < end)
+            {
+                throw new ArgumentException("Gradient ranges must be in ascending order and must not overlap.", nameof(ranges));
+            }
+            end = o + n;
+            sum = Networks.Kernels.SumOfSquares(gradient.Slice(o, n), sum);
+        }
+        double norm = Math.Sqrt(sum);
+        if (norm > maxNorm)
+        {
+            float scale = (float)(maxNorm / norm);
+            foreach (var (o, n) in ranges)
+            {
+                Span<float> g = gradient.Slice(o, n);
+                for (int i = 0; i < g.Length; i++)
+                {
+                    g[i] *= scale;
+                }
+            }
+        }
+        return norm;
+    }
 }
