@@ -1,5 +1,6 @@
 using BenchmarkDotNet.Attributes;
 using FedGrid.Federation.Privacy;
+using FedGrid.Federation.Schemes;
 using FedGrid.Grid.Numerics;
 
 namespace FedGrid.Bench;
@@ -96,5 +97,86 @@ public class PrivacyBenchmarks
     public void KeyAgreementOneHousehold()
     {
         using var masker = new PairwiseMasker(0, _keys[0], _public, Session, _encoding, Length);
+    }
+}
+
+/// <summary>
+/// The <c>masked-sums</c> scheme's own per-step work on the default run's sizes (32 households, 64 actor and 64 critic
+/// partial sums each), through the scheme sides the protocol calls: a household masking its step (fixed point, 2 × 31 pair
+/// masks, the message's repeated fields), a household removing its own part from the returned totals, and the
+/// coordinator's combining of one step (32 adds of 2 masked vectors, decode, 32 replies) counted per household. Reference:
+/// the same household call under <c>plain</c> (floats copied into the message). Goal (issue 7): µs and bytes per
+/// household per step.
+/// </summary>
+[MemoryDiagnoser]
+public class MaskedSumsSchemeBenchmarks
+{
+    private const int Households = 32, Length = 64;
+    private IHouseholdSchemeSide[] _sides = null!;
+    private IHouseholdSchemeSide _plain = null!;
+    private IPartialSumsCombiner _combiner = null!;
+    private FedGrid.Federation.Wire.PartialSums[] _messages = null!;
+    private FedGrid.Federation.Wire.PartialSums _own = null!, _plainMessage = null!;
+    private FedGrid.Federation.Wire.SumsReply _reply = null!;
+    private float[] _actor = null!, _critic = null!, _otherActor = null!, _otherCritic = null!;
+    private long _step;
+
+    [GlobalSetup]
+    public void Setup()
+    {
+        var random = new SeededRandom(9);
+        var scheme = new MaskedSumsScheme();
+        _combiner = scheme.CreateCoordinatorSide(Households, Length, Length).PartialSums;
+        _sides = [.. Enumerable.Range(0, Households).Select(m => scheme.CreateHouseholdSide(m, (ulong)m + 1))];
+        _plain = ClearScheme.Plain().CreateHouseholdSide(0, 1);
+        _actor = [.. Enumerable.Range(0, Length).Select(_ => (float)random.NextDouble(-10, 10))];
+        _critic = [.. Enumerable.Range(0, Length).Select(_ => (float)random.NextDouble(-10, 10))];
+        _otherActor = new float[Length];
+        _otherCritic = new float[Length];
+        _messages = [.. Enumerable.Range(0, Households).Select(m =>
+        {
+            var p = new FedGrid.Federation.Wire.PartialSums { Round = 0, Step = 0 };
+            _sides[m].EncodePartialSums(_actor, _critic, p);
+            return p;
+        })];
+        _own = new FedGrid.Federation.Wire.PartialSums { Round = 0, Step = 1 };
+        _plainMessage = new FedGrid.Federation.Wire.PartialSums { Round = 0, Step = 1 };
+        _reply = new FedGrid.Federation.Wire.SumsReply();
+        CoordinatorStep();
+        HouseholdMask();
+        PlainEncode();
+        Console.Error.WriteLine(FormattableString.Invariant(
+            $"masked-sums bench: partial-sums message {_own.CalculateSize()} B masked, {_plainMessage.CalculateSize()} B plain; totals reply {_reply.CalculateSize()} B"));
+    }
+
+    /// <summary>Reference: a household's partial sums under <c>plain</c> (floats into the message).</summary>
+    [Benchmark(Baseline = true)]
+    public void PlainEncode() => _plain.EncodePartialSums(_actor, _critic, _plainMessage);
+
+    /// <summary>One household masks its step: actor and critic sums, 31 pair masks each, into the message.</summary>
+    [Benchmark]
+    public void HouseholdMask()
+    {
+        _own.Step = ++_step;
+        _sides[0].EncodePartialSums(_actor, _critic, _own);
+    }
+
+    /// <summary>One household takes its own part out of the returned totals (both networks).</summary>
+    [Benchmark]
+    public void HouseholdUnmask() => _sides[0].DecodeSums(_reply, _actor, _critic, _otherActor, _otherCritic);
+
+    /// <summary>The coordinator's combining of one step (32 households), per household.</summary>
+    [Benchmark(OperationsPerInvoke = Households)]
+    public void CoordinatorStep()
+    {
+        _combiner.Begin();
+        for (int m = 0; m < Households; m++)
+        {
+            _combiner.Add(m, _messages[m]);
+        }
+        for (int m = 0; m < Households; m++)
+        {
+            _combiner.WriteReply(m, _reply);
+        }
     }
 }

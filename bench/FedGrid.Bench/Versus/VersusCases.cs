@@ -8,5 +8,6 @@ internal static class VersusCases
         foreach (IVersusCase c in PowerFlowVersusCase.All()) yield return c;
         foreach (IVersusCase c in ProjectionVersusCase.All()) yield return c;
         yield return new HostingVersusCase();
+        foreach (IVersusCase c in FederatedRunVersusCases.All()) yield return c;
     }
 }

@@ -105,6 +105,7 @@ public sealed class LocalTrainer
     private readonly IOptimiser _actorOpt, _criticOpt;
     private readonly float[] _actorGrad, _criticGrad, _actorOut, _actorOutGrad, _values, _valueGrad;
     private readonly float[] _returnBuffer;
+    private readonly (int Offset, int Length)[] _actorRanges, _criticRanges;
 
     internal LocalTrainer(int household, DenseNetwork actor, DenseNetwork critic, ActorCriticOptions learning, LocalTrainingOptions local)
     {
@@ -131,6 +132,29 @@ public sealed class LocalTrainer
         _values = new float[critic.Shape.OutputSize];
         _valueGrad = new float[critic.Shape.OutputSize];
         _returnBuffer = new float[1];
+        _actorRanges = TrainedRanges(actor, household, actor.Shape.OutputSize / actor.Shape.BlockCount);
+        _criticRanges = TrainedRanges(critic, household, critic.Shape.OutputSize / critic.Shape.BlockCount);
+    }
+
+    /// <summary>
+    /// The ranges of the flat gradient that household m's split backward passes can make non-zero, ascending: its
+    /// first-layer columns W_m, the first-layer bias and every hidden layer, and its own rows and biases of the output
+    /// layer. The rest of the gradient stays zero, so clearing, clipping and optimiser steps run on these ranges only
+    /// (same result bit for bit as on the whole vector; see <see cref="IOptimiser.Step(Span{float}, ReadOnlySpan{float}, ReadOnlySpan{ValueTuple{int, int}})"/>).
+    /// </summary>
+    /// <param name="network">The household's network.</param>
+    /// <param name="household">m.</param>
+    /// <param name="outputsPerHousehold">Outputs of household m's head (2k for the actor, 1 for the critic).</param>
+    /// <returns>(offset, length) ranges.</returns>
+    internal static (int Offset, int Length)[] TrainedRanges(DenseNetwork network, int household, int outputsPerHousehold)
+    {
+        if (network.LayerCount < 2)
+        {
+            return [(0, network.ParameterCount)];
+        }
+        var owned = Coordination.Coordinator.OwnedRanges(network, household, outputsPerHousehold);
+        int hidden = network.BiasOffset(0);
+        return [owned[0], (hidden, network.WeightOffset(network.LayerCount - 1) - hidden), owned[1], owned[2]];
     }
 
     /// <summary>Optimiser steps taken since the last reset.</summary>
@@ -174,8 +198,9 @@ public sealed class LocalTrainer
 
     private void Window(TransitionBuffer buffer, int a, int b)
     {
-        Array.Clear(_actorGrad);
-        Array.Clear(_criticGrad);
+        // Only the trained ranges of the gradients can be non-zero (see TrainedRanges); the rest stays zero.
+        Clear(_actorGrad, _actorRanges);
+        Clear(_criticGrad, _criticRanges);
         Array.Clear(_actorOutGrad);
         Array.Clear(_valueGrad);
         float gamma = (float)_learning.Gamma;
@@ -198,9 +223,17 @@ public sealed class LocalTrainer
                 weight, _actorOutGrad.AsSpan(2 * k * _m, 2 * k));
             _actor.Backward(_aw, _actorOutGrad, _actorGrad);
         }
-        GradientClipping.ClipGlobalNorm(_criticGrad, _learning.MaxGradientNorm);
-        GradientClipping.ClipGlobalNorm(_actorGrad, _learning.MaxGradientNorm);
-        _criticOpt.Step(_critic.Parameters, _criticGrad);
-        _actorOpt.Step(_actor.Parameters, _actorGrad);
+        GradientClipping.ClipGlobalNorm(_criticGrad, _learning.MaxGradientNorm, _criticRanges);
+        GradientClipping.ClipGlobalNorm(_actorGrad, _learning.MaxGradientNorm, _actorRanges);
+        _criticOpt.Step(_critic.Parameters, _criticGrad, _criticRanges);
+        _actorOpt.Step(_actor.Parameters, _actorGrad, _actorRanges);
+    }
+
+    private static void Clear(float[] gradient, (int Offset, int Length)[] ranges)
+    {
+        foreach (var (o, n) in ranges)
+        {
+            gradient.AsSpan(o, n).Clear();
+        }
     }
 }

@@ -70,9 +70,11 @@ internal static class Kernels
     }
 
     /// <summary>Σ x[i]² in double precision (for norms).</summary>
-    public static double SumOfSquares(ReadOnlySpan<float> x)
+    public static double SumOfSquares(ReadOnlySpan<float> x) => SumOfSquares(x, 0);
+
+    /// <summary>s + Σ x[i]², accumulated in double precision in index order onto <paramref name="s"/> (so a vector's sum can be continued over several pieces exactly as over the whole).</summary>
+    public static double SumOfSquares(ReadOnlySpan<float> x, double s)
     {
-        double s = 0;
         for (int i = 0; i < x.Length; i++)
         {
             s += (double)x[i] * x[i];

@@ -14,6 +14,18 @@ public interface IOptimiser
     /// <param name="gradient">Gradient of the loss, same layout.</param>
     void Step(Span<float> parameters, ReadOnlySpan<float> gradient);
 
+    /// <summary>
+    /// The same step restricted to the ranges where the gradient can be non-zero (e.g. a household's own columns and the
+    /// shared layers of a split network), at a cost proportional to their length. Precondition: every gradient entry
+    /// outside <paramref name="ranges"/> is zero in this step and has been in every step since the last
+    /// <see cref="Reset"/>. Then the moments outside stay zero and the full <see cref="Step(Span{float}, ReadOnlySpan{float})"/>
+    /// would leave those parameters unchanged, so both give the same parameters bit for bit. Allocates nothing.
+    /// </summary>
+    /// <param name="parameters">Parameters, updated in place inside the ranges.</param>
+    /// <param name="gradient">Gradient of the loss, same layout, zero outside the ranges.</param>
+    /// <param name="ranges">(offset, length) ranges, in any order, not overlapping.</param>
+    void Step(Span<float> parameters, ReadOnlySpan<float> gradient, ReadOnlySpan<(int Offset, int Length)> ranges);
+
     /// <summary>Forgets moment estimates and the step count (e.g. after the federated layer replaces the parameters).</summary>
     void Reset();
 }

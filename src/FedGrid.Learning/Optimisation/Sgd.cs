@@ -37,16 +37,45 @@ public sealed class Sgd : IOptimiser
     /// <inheritdoc />
     public void Step(Span<float> parameters, ReadOnlySpan<float> gradient)
     {
+        CheckLengths(parameters, gradient);
+        StepCount++;
+        Update(parameters, gradient, 0, parameters.Length);
+    }
+
+    /// <inheritdoc />
+    public void Step(Span<float> parameters, ReadOnlySpan<float> gradient, ReadOnlySpan<(int Offset, int Length)> ranges)
+    {
+        CheckLengths(parameters, gradient);
+        foreach (var (o, n) in ranges)
+        {
+            ArgumentOutOfRangeException.ThrowIfNegative(o);
+            ArgumentOutOfRangeException.ThrowIfNegative(n);
+            ArgumentOutOfRangeException.ThrowIfGreaterThan(o + n, _velocity.Length);
+        }
+        StepCount++;
+        foreach (var (o, n) in ranges)
+        {
+            Update(parameters, gradient, o, n);
+        }
+    }
+
+    private void CheckLengths(Span<float> parameters, ReadOnlySpan<float> gradient)
+    {
         if (parameters.Length != _velocity.Length || gradient.Length != _velocity.Length)
         {
             throw new ArgumentException($"SGD was sized for {_velocity.Length} parameters.");
         }
-        StepCount++;
+    }
+
+    private void Update(Span<float> parameters, ReadOnlySpan<float> gradient, int offset, int length)
+    {
         float lr = (float)LearningRate, mu = (float)Momentum;
-        for (int i = 0; i < parameters.Length; i++)
+        Span<float> p = parameters.Slice(offset, length), velocity = _velocity.AsSpan(offset, length);
+        ReadOnlySpan<float> g = gradient.Slice(offset, length);
+        for (int i = 0; i < p.Length; i++)
         {
-            float u = _velocity[i] = mu * _velocity[i] + gradient[i];
-            parameters[i] -= lr * u;
+            float u = velocity[i] = mu * velocity[i] + g[i];
+            p[i] -= lr * u;
         }
     }
 
