@@ -484,7 +484,8 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             }
         }
         _pendingCount = 0;
-        bool admitting = _coordinator.Phase == CoordinatorPhase.Admitting;
+        CoordinatorPhase before = _coordinator.Phase;
+        bool admitting = before == CoordinatorPhase.Admitting;
         lock (_gate)
         {
             foreach (HouseholdMessage p in batch)
@@ -501,6 +502,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 KeyStage.PublicKeys => KeyStage.KeyShares,
                 _ => KeyStage.None,
             };
+        }
+        if (_coordinator.Phase == CoordinatorPhase.CollectingRecoveryShares && before != CoordinatorPhase.CollectingRecoveryShares)
+        {
+            // A household dropped earlier in the round: the survivors were asked for their shares; the answers get a deadline.
+            ArmStepDeadline(_coordinator.Step, CoordinatorPhase.CollectingRecoveryShares);
         }
         AfterDelivery();
     }
