@@ -133,13 +133,11 @@ public sealed class MaskedSumsHostTests
         var records = reader.Records().ToList();
         var events = records.Where(r => r.Event is not null).Select(r => r.Event).ToList();
         Assert.Contains(events, e => e.Kind == EventKind.StepDropout && e.Households.SequenceEqual([2]));
-        if (records.Any(r => r.Received?.BodyCase == HouseholdMessage.BodyOneofCase.RecoveryShares))
-        {
-            // H03 left before its partial sums of a step: the two survivors (the threshold t = 2 of 3) revealed their
-            // shares of its mask key and the step's total was recovered, not abandoned.
-            Assert.Contains(events, e => e.Kind == EventKind.SumRecovered && e.Households.SequenceEqual([2]));
-            Assert.DoesNotContain(events, e => e.Kind == EventKind.SumAbandoned);
-        }
+        // H03 left mid-round: at its first missing partial sums the two survivors (the threshold t = 2 of 3) revealed
+        // their shares of its mask key and the step's total was recovered, not abandoned.
+        Assert.Contains(records, r => r.Received?.BodyCase == HouseholdMessage.BodyOneofCase.RecoveryShares);
+        Assert.Contains(events, e => e.Kind == EventKind.SumRecovered && e.Households.SequenceEqual([2]));
+        Assert.DoesNotContain(events, e => e.Kind == EventKind.SumAbandoned);
         Assert.Contains(events, e => e.Kind == EventKind.RoundAggregated && !e.Households.Contains(2));
     }
 
