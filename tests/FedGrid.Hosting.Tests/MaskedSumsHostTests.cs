@@ -77,19 +77,22 @@ public sealed class MaskedSumsHostTests
         Refused(checks, new HouseholdMessage { HouseholdIndex = 0, PartialSums = both }, "both clear and masked");
     }
 
-    [Fact]
-    public async Task MaskedSumsOverTheHostsGiveTheInProcessModelBitForBit()
+    [Theory]
+    [InlineData("masked-sums")]
+    [InlineData("dp-masked-sums")]
+    public async Task MaskedSumsOverTheHostsGiveTheInProcessModelBitForBit(string scheme)
     {
+        HostedRunSettings run = HostedRunTests.Small with { Scheme = scheme };
         string dir = Directory.CreateTempSubdirectory("fedgrid-masked-hosts-").FullName;
         string transcript = Path.Combine(dir, "run.fgt");
-        await using var c = await TestCoordinator.StartAsync(Masked, transcript: transcript);
-        var hosts = Masked.CreateScenario().Households
-            .Select(h => Task.Run(() => new HouseholdHost(Masked, h.Id, NullLogger.Instance).RunAsync(c.Address, CancellationToken.None))).ToArray();
+        await using var c = await TestCoordinator.StartAsync(run, transcript: transcript);
+        var hosts = run.CreateScenario().Households
+            .Select(h => Task.Run(() => new HouseholdHost(run, h.Id, NullLogger.Instance).RunAsync(c.Address, CancellationToken.None))).ToArray();
         CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(3));
         await Task.WhenAll(hosts).WaitAsync(TimeSpan.FromMinutes(1));
         Assert.True(outcome.Ok, outcome.Error);
         Assert.Equal(96, outcome.Steps);
-        var (sha, inProcess) = Masked.RunInProcess();
+        var (sha, inProcess) = run.RunInProcess();
         Assert.Equal(Convert.ToHexStringLower(sha), outcome.ModelSha256);
         Assert.Equal(inProcess.WireBytes, outcome.WireBytes);
         using var reader = TranscriptReader.Open(transcript);
