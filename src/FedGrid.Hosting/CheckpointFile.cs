@@ -10,7 +10,7 @@ namespace FedGrid.Hosting;
 /// </summary>
 public static class CheckpointFile
 {
-    private static ReadOnlySpan<byte> Magic => "FGCKPT01"u8;
+    private static ReadOnlySpan<byte> Magic => "FGCKPT02"u8;
 
     /// <summary>Writes a checkpoint atomically.</summary>
     /// <param name="path">Target file.</param>
@@ -65,7 +65,7 @@ public static class CheckpointFile
         using var r = new BinaryReader(new MemoryStream(bytes, Magic.Length, content - Magic.Length));
         try
         {
-            var saved = new HostedRunSettings(r.ReadUInt64(), r.ReadInt32(), r.ReadInt32(), r.ReadInt32());
+            var saved = new HostedRunSettings(r.ReadUInt64(), r.ReadInt32(), r.ReadInt32(), r.ReadInt32(), r.ReadString());
             if (saved != run)
             {
                 throw new InvalidDataException($"{path}: checkpoint of run {saved}; this process runs {run}");
@@ -93,5 +93,6 @@ public static class CheckpointFile
         w.Write(run.Days);
         w.Write(run.Households);
         w.Write(run.StepsPerRound);
+        w.Write(run.Scheme);
     }
 }

@@ -102,6 +102,19 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     private int _checkpointRound;
     private double _earlierSeconds;
 
+    /// <summary>Masked sums: the key agreement after admission, held and delivered in household order like every phase.</summary>
+    private enum KeyStage
+    {
+        /// <summary>No key agreement under way (not masked sums, or done).</summary>
+        None,
+        /// <summary>Waiting for every household's public keys (the coordinator then sends the directory).</summary>
+        PublicKeys,
+        /// <summary>Waiting for every household's encrypted key shares (the coordinator relays each to its holder).</summary>
+        KeyShares,
+    }
+
+    private KeyStage _keyStage;
+
     /// <summary>Sets up the coordinator for the run.</summary>
     /// <param name="options">Settings.</param>
     /// <param name="log">Logger.</param>
@@ -125,6 +138,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         ulong transcriptRecords = 0;
         if (options.StateFolder is not null)
         {
+            options.Run.RequireCheckpointable();
             Directory.CreateDirectory(options.StateFolder);
             _checkpoint = Path.Combine(options.StateFolder, CheckpointFileName);
             if (File.Exists(_checkpoint))
@@ -168,7 +182,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             });
         }
         _coordinator = new Coordinator(InProcessFederation.CreateCoordinatorSetup(_scenario, run, features), _writer ?? (ITranscriptSink)NullTranscript.Instance);
-        Checks = new MessageChecks(_coordinator.ActorShape.HiddenSizes[0], _coordinator.CriticShape.HiddenSizes[0]);
+        Checks = new MessageChecks(_coordinator.ActorShape.HiddenSizes[0], _coordinator.CriticShape.HiddenSizes[0], _n);
         _sessions = new HouseholdSession?[_n];
         _pending = new HouseholdMessage?[_n];
         _selected = new bool[_n];
@@ -361,10 +375,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             CoordinatorPhase.Admitting => _n,
             _ => _n - DroppedCount(),
         };
-        if (_pendingCount == 1 && _options.StepTimeout is { } timeout && phase is CoordinatorPhase.CollectingPartialSums or CoordinatorPhase.CollectingProjectionInputs)
+        if (_pendingCount == 1 && _keyStage == KeyStage.None && phase is CoordinatorPhase.CollectingPartialSums or CoordinatorPhase.CollectingProjectionInputs)
         {
-            long step = phase == CoordinatorPhase.CollectingPartialSums ? message.PartialSums.Step : _coordinator.Step;
-            _ = Task.Delay(timeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(null, null, false, -1, TimeoutStep: step, TimeoutPhase: phase)), TaskScheduler.Default);
+            ArmStepDeadline(phase == CoordinatorPhase.CollectingPartialSums ? message.PartialSums.Step : _coordinator.Step, phase);
         }
         if (_pendingCount == needed)
         {
@@ -382,12 +395,25 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         return d;
     }
 
-    /// <summary>A step phase's deadline: the held messages go in, the coordinator drops the missing households and goes on.</summary>
+    /// <summary>Schedules the deadline of a step's phase (with <see cref="CoordinatorHostOptions.StepTimeout"/>).</summary>
+    private void ArmStepDeadline(long step, CoordinatorPhase phase)
+    {
+        if (_options.StepTimeout is { } timeout)
+        {
+            _ = Task.Delay(timeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(null, null, false, -1, TimeoutStep: step, TimeoutPhase: phase)), TaskScheduler.Default);
+        }
+    }
+
+    /// <summary>
+    /// A step phase's deadline: the held messages go in, the coordinator drops the missing households and goes on. Under
+    /// masked sums a dropout in the partial-sums phase opens the recovery phase, whose deadline starts at once (the
+    /// survivors were asked for their shares; one that does not answer is dropped in turn).
+    /// </summary>
     private void OnStepTimeout(long step, CoordinatorPhase phase)
     {
         bool same = _coordinator.Phase == phase
             && (phase == CoordinatorPhase.CollectingPartialSums ? _coordinator.Step == step - 1 : _coordinator.Step == step);
-        if (!same || _pendingCount == 0 || _finished)
+        if (!same || _finished || (_pendingCount == 0 && phase != CoordinatorPhase.CollectingRecoveryShares))
         {
             return;
         }
@@ -398,6 +424,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             lock (_gate)
             {
                 _coordinator.CloseStep(this); // the next phase's replies arrive through the queue and get their own deadline
+            }
+            if (_coordinator.Phase == CoordinatorPhase.CollectingRecoveryShares)
+            {
+                _log.LogWarning("step {Step}: asked the survivors for their shares of the dropped households' mask keys", _coordinator.Step);
+                ArmStepDeadline(_coordinator.Step, CoordinatorPhase.CollectingRecoveryShares);
             }
             AfterDelivery();
         }
@@ -417,6 +448,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         {
             return $"household {m} was dropped from round {round} after missing a step's deadline";
         }
+        if (_keyStage != KeyStage.None)
+        {
+            HouseholdMessage.BodyOneofCase want = _keyStage == KeyStage.PublicKeys ? HouseholdMessage.BodyOneofCase.MaskedKeys : HouseholdMessage.BodyOneofCase.KeyShares;
+            return message.BodyCase == want ? null : $"{message.BodyCase} from household {m} while the masked-sums key agreement waits for {want}";
+        }
         return message.BodyCase switch
         {
             HouseholdMessage.BodyOneofCase.Join when phase == CoordinatorPhase.Admitting => null,
@@ -426,6 +462,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             HouseholdMessage.BodyOneofCase.ProjectionInputs when phase == CoordinatorPhase.CollectingProjectionInputs =>
                 message.ProjectionInputs.Round == round && message.ProjectionInputs.Step == _coordinator.Step ? null
                     : $"projection inputs from household {m} for round {message.ProjectionInputs.Round} step {message.ProjectionInputs.Step}; round {round} step {_coordinator.Step} is open",
+            HouseholdMessage.BodyOneofCase.RecoveryShares when phase == CoordinatorPhase.CollectingRecoveryShares =>
+                message.RecoveryShares.Round == round && message.RecoveryShares.Step == _coordinator.Step ? null
+                    : $"recovery shares from household {m} for round {message.RecoveryShares.Round} step {message.RecoveryShares.Step}; round {round} step {_coordinator.Step} is recovering",
             HouseholdMessage.BodyOneofCase.Upload when phase == CoordinatorPhase.CollectingUploads =>
                 message.Upload.Round != round ? $"upload from household {m} for round {message.Upload.Round}; round {round} is collecting"
                     : !_selected[m] ? $"household {m} uploaded without being called in round {round}" : null,
@@ -445,7 +484,8 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             }
         }
         _pendingCount = 0;
-        bool admitting = _coordinator.Phase == CoordinatorPhase.Admitting;
+        CoordinatorPhase before = _coordinator.Phase;
+        bool admitting = before == CoordinatorPhase.Admitting;
         lock (_gate)
         {
             foreach (HouseholdMessage p in batch)
@@ -456,6 +496,17 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             {
                 _watch.Restart(); // the run's clock starts when every household is admitted
             }
+            _keyStage = _keyStage switch
+            {
+                KeyStage.None when admitting && _options.Run.MaskedSums => KeyStage.PublicKeys,
+                KeyStage.PublicKeys => KeyStage.KeyShares,
+                _ => KeyStage.None,
+            };
+        }
+        if (_coordinator.Phase == CoordinatorPhase.CollectingRecoveryShares && before != CoordinatorPhase.CollectingRecoveryShares)
+        {
+            // A household dropped earlier in the round: the survivors were asked for their shares; the answers get a deadline.
+            ArmStepDeadline(_coordinator.Step, CoordinatorPhase.CollectingRecoveryShares);
         }
         AfterDelivery();
     }
@@ -530,6 +581,22 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             return;
         }
         int m = session.Index;
+        if (_options.Run.MaskedSums && _coordinator.Phase != CoordinatorPhase.Admitting)
+        {
+            // Its private keys and the shares it held went with its session: it cannot come back over the hosts. With a
+            // step deadline the coordinator drops it and recovers the steps' sums from the survivors' shares.
+            if (_options.StepTimeout is not null && _keyStage == KeyStage.None)
+            {
+                _log.LogWarning("household {Index} ('{Id}') left in round {Round} ({Phase}); under {Scheme} it cannot rejoin, the step deadline will drop it",
+                    m, session.Id, _coordinator.Round, _coordinator.Phase, _options.Run.Scheme);
+                return;
+            }
+            string why = $"household '{session.Id}' left {(_keyStage != KeyStage.None ? "during the masked-sums key agreement" : $"in round {_coordinator.Round} ({_coordinator.Phase})")}; " +
+                $"under {_options.Run.Scheme} a household whose session broke cannot rejoin (its keys go with it){(_keyStage == KeyStage.None ? "; run with --step-timeout to drop it and recover the sums" : "")}";
+            _log.LogError("{Why}", why);
+            _done.TrySetResult(Outcome(false, why));
+            return;
+        }
         if (_coordinator.Phase == CoordinatorPhase.CollectingUploads || _coordinator.AtRoundStart)
         {
             // Between rounds the household can come back: a message it left pending at this round start is dropped (it
@@ -569,6 +636,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
 
     private void OnRejoin(HouseholdSession session, HouseholdMessage join)
     {
+        if (_options.Run.MaskedSums)
+        {
+            Reject(session, StatusCode.FailedPrecondition, $"household '{session.Id}' cannot rejoin a {_options.Run.Scheme} run over the hosts (its keys and the shares it held are gone)");
+            return;
+        }
         if (!_coordinator.AtRoundStart)
         {
             // Mid-round: the household retries and comes in at the next round start.

@@ -1,4 +1,5 @@
 using System.Collections.Immutable;
+using FedGrid.Federation.Privacy;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Schemes;
@@ -18,7 +19,8 @@ namespace FedGrid.Hosting;
 /// <param name="Days">Simulated days.</param>
 /// <param name="Households">Households taking part (the first N of the default scenario's 32).</param>
 /// <param name="StepsPerRound">Decision steps per round.</param>
-public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int StepsPerRound = SlotCalendar.SlotsPerDay)
+/// <param name="Scheme">The scheme's name (<see cref="FederationSchemes.Names"/>; the DP schemes with their default settings).</param>
+public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int StepsPerRound = SlotCalendar.SlotsPerDay, string Scheme = ClearScheme.PlainName)
 {
     /// <summary>Checks the ranges and names the bad field.</summary>
     /// <exception cref="ArgumentException">A field is out of range.</exception>
@@ -37,7 +39,29 @@ public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int
         {
             throw new ArgumentException($"steps per round must be at least 1, got {StepsPerRound}");
         }
+        if (!FederationSchemes.Names.Contains(Scheme))
+        {
+            throw new ArgumentException($"scheme '{Scheme}' is unknown; use {FederationSchemes.NameList()}");
+        }
     }
+
+    /// <summary>Whether the hosts can checkpoint this run (<c>--state</c>): the clear schemes only; the masked-sums key
+    /// material and the DP layer's state are not written to checkpoints.</summary>
+    public bool Checkpointable => Scheme is ClearScheme.PlainName or ClearScheme.PrivateColumnsName;
+
+    /// <summary>Throws when the run cannot be checkpointed (see <see cref="Checkpointable"/>), before any process starts work.</summary>
+    /// <exception cref="ArgumentException">The scheme keeps state the checkpoints do not hold.</exception>
+    public void RequireCheckpointable()
+    {
+        if (!Checkpointable)
+        {
+            throw new ArgumentException($"--state: scheme '{Scheme}' cannot be checkpointed (its keys, shares or noise state are not written to checkpoints); " +
+                $"use --scheme {ClearScheme.PlainName} or {ClearScheme.PrivateColumnsName} with --state, or run without --state");
+        }
+    }
+
+    /// <summary>Whether the run's scheme agrees masked-sums keys after admission (masked-sums, dp-masked-sums).</summary>
+    public bool MaskedSums => Scheme is MaskedSumsScheme.SchemeName or DifferentiallyPrivateScheme.MaskedSchemeName;
 
     /// <summary>The operator's scenario: the default scenario cut to the first <see cref="Households"/> households.</summary>
     /// <returns>The scenario.</returns>
@@ -66,11 +90,11 @@ public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int
         throw new ArgumentException($"household '{householdId}' is not among the scenario's {full.Households.Length} households");
     }
 
-    /// <summary>The run's settings: plain scheme, the centralized actor-critic's learner settings and seed (as <c>fedgrid train --mode federated</c>).</summary>
+    /// <summary>The run's settings: the scheme of <see cref="Scheme"/>, the centralized actor-critic's learner settings and seed (as <c>fedgrid train --mode federated</c>).</summary>
     /// <returns>The options.</returns>
     public FederatedRunOptions CreateRunOptions() => new()
     {
-        Scheme = ClearScheme.Plain(),
+        Scheme = FederationSchemes.FromName(Scheme),
         Federation = new FederationOptions
         {
             Learning = TrainingDefaults.ActorCritic with { Seed = LearningRandom.DeriveSeed(Seed, 0xAC) },
@@ -95,5 +119,6 @@ public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int
         "--days", Days.ToString(System.Globalization.CultureInfo.InvariantCulture),
         "--seed", Seed.ToString(System.Globalization.CultureInfo.InvariantCulture),
         "--steps-per-round", StepsPerRound.ToString(System.Globalization.CultureInfo.InvariantCulture),
+        "--scheme", Scheme,
     ];
 }

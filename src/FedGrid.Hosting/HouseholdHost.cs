@@ -99,6 +99,10 @@ public sealed class HouseholdHost
     public async Task RunAsync(Uri address, CancellationToken cancel, string? tlsFolder = null)
     {
         ArgumentNullException.ThrowIfNull(address);
+        if (StateFolder is not null)
+        {
+            _run.RequireCheckpointable();
+        }
         // A restarted household that holds checkpoints was admitted before: it reconnects like one.
         _everAdmitted |= StateFolder is not null && Directory.Exists(StateFolder) && Directory.EnumerateFiles(StateFolder, _id + ".round-*.ckpt").Any();
         var sinceProgress = System.Diagnostics.Stopwatch.StartNew();
@@ -170,6 +174,10 @@ public sealed class HouseholdHost
         _applied.Clear();
         await send.WriteAsync(_agent.Join(), cancel);
         bool done = false, first = true;
+        // Masked sums: the first step waits for the key agreement — the directory with the household's own keys and a
+        // relayed share from every peer (the coordinator relays them only once every household's shares are in).
+        bool keysAwaited = false, directory = false, startWaiting = false;
+        int sharesHeld = 0;
         await foreach (CoordinatorMessage message in call.ResponseStream.ReadAllAsync(cancel))
         {
             if (message.BodyCase == CoordinatorMessage.BodyOneofCase.Model && first)
@@ -190,6 +198,18 @@ public sealed class HouseholdHost
                 }
             }
             HouseholdMessage? reply = _agent.Receive(message);
+            switch (message.BodyCase)
+            {
+                case CoordinatorMessage.BodyOneofCase.Accepted:
+                    keysAwaited = reply?.BodyCase == HouseholdMessage.BodyOneofCase.MaskedKeys;
+                    break;
+                case CoordinatorMessage.BodyOneofCase.MaskedKeys:
+                    directory |= reply?.BodyCase == HouseholdMessage.BodyOneofCase.KeyShares;
+                    break;
+                case CoordinatorMessage.BodyOneofCase.KeyShare:
+                    sharesHeld++;
+                    break;
+            }
             if (reply is not null)
             {
                 await send.WriteAsync(reply, cancel);
@@ -202,7 +222,7 @@ public sealed class HouseholdHost
                     _log.LogInformation("household '{Id}' admitted as {Index} of {Count}", _id, message.Accepted.HouseholdIndex, message.Accepted.HouseholdCount);
                     break;
                 case CoordinatorMessage.BodyOneofCase.Model when _agent.Phase == HouseholdPhase.Ready:
-                    done = await NextOrDone(send, cancel);
+                    startWaiting = true;
                     break;
                 case CoordinatorMessage.BodyOneofCase.Setpoint:
                     int day = _world.Day + 1;
@@ -221,6 +241,11 @@ public sealed class HouseholdHost
                         done = await NextOrDone(send, cancel);
                     }
                     break;
+            }
+            if (startWaiting && (!keysAwaited || (directory && sharesHeld >= _accepted!.HouseholdCount - 1)))
+            {
+                startWaiting = false;
+                done = await NextOrDone(send, cancel);
             }
             if (done)
             {

@@ -33,12 +33,19 @@ public static class Launcher
     /// <param name="progress">Progress lines (children's output included).</param>
     /// <param name="cancel">Stops everything.</param>
     /// <param name="insecureLoopback">Plain text on loopback instead of mutual TLS with a fresh scenario CA.</param>
+    /// <param name="stepTimeout">The coordinator's <c>--step-timeout</c> (drop households whose step messages miss it), or null to wait for all.</param>
+    /// <param name="stateFolder">Run folder for checkpoints (<c>--state</c>): the coordinator's in <c>coordinator/</c>, each household's in <c>&lt;id&gt;/</c>; kept after the launch. Null for none.</param>
     /// <returns>The report.</returns>
-    public static async Task<LaunchReport> RunAsync(HostedRunSettings run, IReadOnlyList<string> self, TextWriter progress, CancellationToken cancel, bool insecureLoopback = false)
+    public static async Task<LaunchReport> RunAsync(HostedRunSettings run, IReadOnlyList<string> self, TextWriter progress, CancellationToken cancel, bool insecureLoopback = false,
+        TimeSpan? stepTimeout = null, string? stateFolder = null)
     {
         ArgumentNullException.ThrowIfNull(run);
         ArgumentNullException.ThrowIfNull(self);
         ArgumentNullException.ThrowIfNull(progress);
+        if (stateFolder is not null)
+        {
+            run.RequireCheckpointable();
+        }
         var scenario = run.CreateScenario();
         string folder = Directory.CreateTempSubdirectory("fedgrid-launch-").FullName;
         string result = Path.Combine(folder, "coordinator.json");
@@ -52,14 +59,13 @@ public static class Launcher
         var children = new List<Process>();
         try
         {
-            Process coordinator = Start(self, ["coordinator", .. run.ToArguments(), "--port", port.ToString(CultureInfo.InvariantCulture), .. transport, "--result", result],
-                "coordinator", progress);
+            Process coordinator = Start(self, CoordinatorArguments(run, port, transport, result, stepTimeout, stateFolder), "coordinator", progress);
             children.Add(coordinator);
             await WaitListening(port, coordinator, cancel);
             var address = $"{(insecureLoopback ? "http" : "https")}://127.0.0.1:{port}";
             foreach (var h in scenario.Households)
             {
-                children.Add(Start(self, ["household", .. run.ToArguments(), "--id", h.Id, "--coordinator", address, .. transport], h.Id, progress));
+                children.Add(Start(self, HouseholdArguments(run, h.Id, address, transport, stateFolder), h.Id, progress));
             }
             progress.WriteLine($"launch: coordinator on {address} and {scenario.Households.Length} household processes ({(insecureLoopback ? "plain text on loopback" : "mutual TLS, scenario CA in " + tls)})");
             // The run ends when the coordinator exits; a household that fails first ends it too.
@@ -115,6 +121,54 @@ public static class Launcher
                 // left for the OS to clean
             }
         }
+    }
+
+    /// <summary>The coordinator process's arguments in a launch.</summary>
+    /// <param name="run">The run.</param>
+    /// <param name="port">Loopback port.</param>
+    /// <param name="transport"><c>--tls DIR</c> or <c>--insecure-loopback</c>.</param>
+    /// <param name="result">Its result file.</param>
+    /// <param name="stepTimeout">Its <c>--step-timeout</c>, or null.</param>
+    /// <param name="stateFolder">The launch's run folder (the coordinator's checkpoints go in its <c>coordinator/</c>), or null.</param>
+    /// <returns>Arguments after the executable.</returns>
+    public static IReadOnlyList<string> CoordinatorArguments(HostedRunSettings run, int port, IReadOnlyList<string> transport, string result, TimeSpan? stepTimeout, string? stateFolder)
+    {
+        ArgumentNullException.ThrowIfNull(run);
+        var args = new List<string> { "coordinator" };
+        args.AddRange(run.ToArguments());
+        args.AddRange(["--port", port.ToString(CultureInfo.InvariantCulture)]);
+        args.AddRange(transport);
+        args.AddRange(["--result", result]);
+        if (stepTimeout is { } t)
+        {
+            args.AddRange(["--step-timeout", t.TotalSeconds.ToString("R", CultureInfo.InvariantCulture)]);
+        }
+        if (stateFolder is not null)
+        {
+            args.AddRange(["--state", Path.Combine(stateFolder, "coordinator")]);
+        }
+        return args;
+    }
+
+    /// <summary>A household process's arguments in a launch.</summary>
+    /// <param name="run">The run.</param>
+    /// <param name="id">The household's id.</param>
+    /// <param name="address">The coordinator's address.</param>
+    /// <param name="transport"><c>--tls DIR</c> or <c>--insecure-loopback</c>.</param>
+    /// <param name="stateFolder">The launch's run folder (the household's checkpoints go in its <c>&lt;id&gt;/</c>), or null.</param>
+    /// <returns>Arguments after the executable.</returns>
+    public static IReadOnlyList<string> HouseholdArguments(HostedRunSettings run, string id, string address, IReadOnlyList<string> transport, string? stateFolder)
+    {
+        ArgumentNullException.ThrowIfNull(run);
+        var args = new List<string> { "household" };
+        args.AddRange(run.ToArguments());
+        args.AddRange(["--id", id, "--coordinator", address]);
+        args.AddRange(transport);
+        if (stateFolder is not null)
+        {
+            args.AddRange(["--state", Path.Combine(stateFolder, id)]);
+        }
+        return args;
     }
 
     /// <summary>A loopback TCP port that was free a moment ago.</summary>

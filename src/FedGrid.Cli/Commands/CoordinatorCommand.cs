@@ -57,9 +57,12 @@ internal static class CoordinatorCommand
             double? step = parse.GetValue(stepTimeout);
             if (step is { } st && !(st > 0))
                 throw new UserInputException($"--step-timeout must be positive, got {st}");
+            HostedRunSettings run = read(parse);
+            if (parse.GetValue(state) is not null)
+                HostOptions.RequireCheckpointable(run);
             var options = new CoordinatorHostOptions
             {
-                Run = read(parse), RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript),
+                Run = run, RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript),
                 StateFolder = parse.GetValue(state), Resume = parse.GetValue(resume), RejoinTimeout = TimeSpan.FromSeconds(rejoinSeconds),
                 HoldAfterCheckpointRound = parse.GetValue(hold),
                 StepTimeout = step is { } s ? TimeSpan.FromSeconds(s) : null,

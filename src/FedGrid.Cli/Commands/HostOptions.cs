@@ -16,19 +16,33 @@ internal static class HostOptions
         var days = new Option<int>("--days") { Description = $"simulated days (default {DefaultDays})", DefaultValueFactory = _ => DefaultDays };
         var seed = new Option<ulong>("--seed") { Description = $"seed of the households, their data and the learner (default {DefaultScenario.DefaultSeed})", DefaultValueFactory = _ => DefaultScenario.DefaultSeed };
         var round = new Option<int>("--steps-per-round") { Description = $"decision steps per round (default {SlotCalendar.SlotsPerDay}, one day)", DefaultValueFactory = _ => SlotCalendar.SlotsPerDay };
-        return ([households, days, seed, round], p =>
+        var scheme = new Option<string>("--scheme") { Description = $"the scheme: {FedGrid.Federation.Schemes.FederationSchemes.NameList()} (default plain; the DP schemes with their default noise)", DefaultValueFactory = _ => FedGrid.Federation.Schemes.ClearScheme.PlainName };
+        return ([households, days, seed, round, scheme], p =>
         {
-            var s = new HostedRunSettings(p.GetValue(seed), p.GetValue(days), p.GetValue(households), p.GetValue(round));
+            var s = new HostedRunSettings(p.GetValue(seed), p.GetValue(days), p.GetValue(households), p.GetValue(round), p.GetValue(scheme)!);
             try
             {
                 s.Validate();
             }
             catch (ArgumentException e)
             {
-                throw new UserInputException(e.Message);
+                throw new UserInputException(e.Message.StartsWith("scheme", StringComparison.Ordinal) ? "--" + e.Message : e.Message);
             }
             return s;
         });
+    }
+
+    /// <summary>Refuses --state for a run whose scheme the checkpoints do not cover, as a user error before anything starts.</summary>
+    public static void RequireCheckpointable(HostedRunSettings run)
+    {
+        try
+        {
+            run.RequireCheckpointable();
+        }
+        catch (ArgumentException e)
+        {
+            throw new UserInputException(e.Message);
+        }
     }
 
     public static Option<bool> InsecureLoopback() => new("--insecure-loopback")

@@ -36,13 +36,16 @@ internal static class HouseholdCommand
             if (folder is null && !address.IsLoopback)
                 throw new UserInputException($"--coordinator {address}: plain text is allowed on loopback only");
             using ILoggerFactory logs = LoggerFactory.Create(b => b.AddSimpleConsole(o => { o.SingleLine = true; o.TimestampFormat = "HH:mm:ss.fff "; }).SetMinimumLevel(LogLevel.Information));
+            HostedRunSettings run = read(parse);
+            if (parse.GetValue(state) is not null)
+                HostOptions.RequireCheckpointable(run);
             HouseholdHost host;
             try
             {
                 double window = parse.GetValue(reconnect);
                 if (!(window > 0))
                     throw new UserInputException($"--reconnect-window must be positive, got {window}");
-                host = new HouseholdHost(read(parse), parse.GetValue(id)!, logs.CreateLogger("FedGrid.Household"))
+                host = new HouseholdHost(run, parse.GetValue(id)!, logs.CreateLogger("FedGrid.Household"))
                 {
                     StateFolder = parse.GetValue(state), ReconnectWindow = TimeSpan.FromSeconds(window), HoldUploadInRound = parse.GetValue(hold),
                 };

@@ -16,18 +16,33 @@ internal static class LaunchCommand
         var (runOptions, read) = HostOptions.Create(householdsRequired: true);
         var json = new Option<bool>("--json") { Description = "print one JSON object instead of a summary" };
         var insecure = HostOptions.InsecureLoopback();
+        var stepTimeout = new Option<double?>("--step-timeout") { Description = "passed to the coordinator: seconds a decision step waits, from its first message, before it drops the missing households for the round (default: wait for all)" };
+        var state = new Option<string?>("--state") { Description = "run folder for checkpoints: the coordinator's in DIR/coordinator, each household's in DIR/<id> (plain and private-columns only)" };
         var cmd = new Command("launch", "Start a coordinator and N household processes on loopback, run, compare with the in-process run, shut everything down.");
         foreach (Option o in runOptions)
             cmd.Options.Add(o);
         cmd.Options.Add(json);
         cmd.Options.Add(insecure);
+        cmd.Options.Add(stepTimeout);
+        cmd.Options.Add(state);
         cmd.SetAction(async (parse, cancel) =>
         {
             HostedRunSettings run = read(parse);
+            double? step = parse.GetValue(stepTimeout);
+            if (step is { } st && !(st > 0))
+                throw new UserInputException($"--step-timeout must be positive, got {st}");
+            string? folder = parse.GetValue(state);
+            if (folder is not null)
+            {
+                HostOptions.RequireCheckpointable(run);
+                if (Directory.Exists(folder) && Directory.EnumerateFileSystemEntries(folder).Any())
+                    throw new UserInputException($"--state {folder}: the folder is not empty; a launch starts a fresh run (resume a run with the coordinator verb's --resume)");
+            }
             LaunchReport r;
             try
             {
-                r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel, parse.GetValue(insecure));
+                r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel, parse.GetValue(insecure),
+                    step is { } s ? TimeSpan.FromSeconds(s) : null, folder is null ? null : Path.GetFullPath(folder));
             }
             catch (Exception e) when (e is InvalidOperationException or TimeoutException)
             {
