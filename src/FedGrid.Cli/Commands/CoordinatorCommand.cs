@@ -15,7 +15,7 @@ internal static class CoordinatorCommand
         var result = new Option<string?>("--result") { Description = "write the run's outcome (JSON) to this file, atomically" };
         var transcript = new Option<string?>("--transcript") { Description = "write the transcript (everything received, in order) to this file" };
         var timeout = new Option<double>("--round-timeout") { Description = "seconds a round waits for its uploads (default 60)", DefaultValueFactory = _ => 60 };
-        var stepTimeout = new Option<double?>("--step-timeout") { Description = "seconds a decision step waits, from its first message, before it drops the missing households for the round (default: wait for all; a household leaving ends the run)" };
+        var stepTimeout = HostOptions.StepTimeout();
         var json = new Option<bool>("--json") { Description = "print the outcome as JSON" };
         var state = new Option<string?>("--state") { Description = "run folder: a checkpoint (coordinator.ckpt) is written there atomically at every round end" };
         var resume = new Option<bool>("--resume") { Description = "continue the run from the checkpoint in --state (starts afresh when there is none); without it an existing checkpoint is refused" };
@@ -46,26 +46,20 @@ internal static class CoordinatorCommand
                 throw new UserInputException($"--address: '{parse.GetValue(address)}' is not an IP address");
             if (folder is null && !IPAddress.IsLoopback(ip))
                 throw new UserInputException($"--address {ip}: plain text is allowed on loopback only");
-            double seconds = parse.GetValue(timeout);
-            if (!(seconds > 0))
-                throw new UserInputException($"--round-timeout must be positive, got {seconds}");
-            double rejoinSeconds = parse.GetValue(rejoin);
-            if (!(rejoinSeconds > 0))
-                throw new UserInputException($"--rejoin-timeout must be positive, got {rejoinSeconds}");
+            TimeSpan roundTimeout = HostOptions.Seconds(parse, timeout);
+            TimeSpan rejoinTimeout = HostOptions.Seconds(parse, rejoin);
             if (parse.GetValue(resume) && parse.GetValue(state) is null)
                 throw new UserInputException("--resume needs --state DIR (the run folder holding the checkpoint)");
-            double? step = parse.GetValue(stepTimeout);
-            if (step is { } st && !(st > 0))
-                throw new UserInputException($"--step-timeout must be positive, got {st}");
+            TimeSpan? stepDeadline = HostOptions.Seconds(parse, stepTimeout);
             HostedRunSettings run = read(parse);
             if (parse.GetValue(state) is not null)
                 HostOptions.RequireCheckpointable(run);
             var options = new CoordinatorHostOptions
             {
-                Run = run, RoundTimeout = TimeSpan.FromSeconds(seconds), TranscriptPath = parse.GetValue(transcript),
-                StateFolder = parse.GetValue(state), Resume = parse.GetValue(resume), RejoinTimeout = TimeSpan.FromSeconds(rejoinSeconds),
+                Run = run, RoundTimeout = roundTimeout, TranscriptPath = parse.GetValue(transcript),
+                StateFolder = parse.GetValue(state), Resume = parse.GetValue(resume), RejoinTimeout = rejoinTimeout,
                 HoldAfterCheckpointRound = parse.GetValue(hold),
-                StepTimeout = step is { } s ? TimeSpan.FromSeconds(s) : null,
+                StepTimeout = stepDeadline,
             };
             var app = CoordinatorHost.Build(options, ip, parse.GetValue(port), tlsFolder: folder);
             CoordinatorOutcome outcome = await CoordinatorHost.RunAsync(app, p => Console.Out.WriteLine($"coordinator: listening on {ip}:{p}"), cancel);

@@ -55,6 +55,23 @@ internal static class HostOptions
         Description = "folder of the run's certificates (fedgrid certificates): ca.crt and coordinator.pfx or <id>.pfx; mutual TLS",
     };
 
+    /// <summary>The coordinator's step deadline (given to <c>coordinator</c>, and by <c>launch</c> to its coordinator).</summary>
+    public static Option<double?> StepTimeout() => new("--step-timeout")
+    {
+        Description = "seconds a decision step waits, from its first message, before it drops the missing households for the round (default: wait for all; a household leaving ends the run)",
+    };
+
+    /// <summary>A duration option in seconds, which must be positive.</summary>
+    public static TimeSpan Seconds(ParseResult parse, Option<double> option) =>
+        Positive(option.Name, parse.GetValue(option));
+
+    /// <summary>An optional duration option in seconds, which must be positive when given.</summary>
+    public static TimeSpan? Seconds(ParseResult parse, Option<double?> option) =>
+        parse.GetValue(option) is { } v ? Positive(option.Name, v) : null;
+
+    private static TimeSpan Positive(string name, double seconds) =>
+        seconds > 0 ? TimeSpan.FromSeconds(seconds) : throw new UserInputException($"{name} must be positive, got {seconds}");
+
     /// <summary>The certificate folder, or null for plain text; exactly one of --tls and --insecure-loopback.</summary>
     public static string? Transport(string? tls, bool insecure)
     {

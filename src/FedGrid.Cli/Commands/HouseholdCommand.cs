@@ -42,12 +42,10 @@ internal static class HouseholdCommand
             HouseholdHost host;
             try
             {
-                double window = parse.GetValue(reconnect);
-                if (!(window > 0))
-                    throw new UserInputException($"--reconnect-window must be positive, got {window}");
+                TimeSpan window = HostOptions.Seconds(parse, reconnect);
                 host = new HouseholdHost(run, parse.GetValue(id)!, logs.CreateLogger("FedGrid.Household"))
                 {
-                    StateFolder = parse.GetValue(state), ReconnectWindow = TimeSpan.FromSeconds(window), HoldUploadInRound = parse.GetValue(hold),
+                    StateFolder = parse.GetValue(state), ReconnectWindow = window, HoldUploadInRound = parse.GetValue(hold),
                 };
             }
             catch (ArgumentException e)

@@ -16,7 +16,7 @@ internal static class LaunchCommand
         var (runOptions, read) = HostOptions.Create(householdsRequired: true);
         var json = new Option<bool>("--json") { Description = "print one JSON object instead of a summary" };
         var insecure = HostOptions.InsecureLoopback();
-        var stepTimeout = new Option<double?>("--step-timeout") { Description = "passed to the coordinator: seconds a decision step waits, from its first message, before it drops the missing households for the round (default: wait for all)" };
+        var stepTimeout = HostOptions.StepTimeout();
         var state = new Option<string?>("--state") { Description = "run folder for checkpoints: the coordinator's in DIR/coordinator, each household's in DIR/<id> (plain and private-columns only)" };
         var cmd = new Command("launch", "Start a coordinator and N household processes on loopback, run, compare with the in-process run, shut everything down.");
         foreach (Option o in runOptions)
@@ -28,9 +28,7 @@ internal static class LaunchCommand
         cmd.SetAction(async (parse, cancel) =>
         {
             HostedRunSettings run = read(parse);
-            double? step = parse.GetValue(stepTimeout);
-            if (step is { } st && !(st > 0))
-                throw new UserInputException($"--step-timeout must be positive, got {st}");
+            TimeSpan? step = HostOptions.Seconds(parse, stepTimeout);
             string? folder = parse.GetValue(state);
             if (folder is not null)
             {
@@ -42,7 +40,7 @@ internal static class LaunchCommand
             try
             {
                 r = await Launcher.RunAsync(run, HostOptions.Self(), Console.Error, cancel, parse.GetValue(insecure),
-                    step is { } s ? TimeSpan.FromSeconds(s) : null, folder is null ? null : Path.GetFullPath(folder));
+                    step, folder is null ? null : Path.GetFullPath(folder));
             }
             catch (Exception e) when (e is InvalidOperationException or TimeoutException)
             {
