@@ -45,9 +45,10 @@ public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int
         }
     }
 
-    /// <summary>Whether the hosts can checkpoint this run (<c>--state</c>): the clear schemes only; the masked-sums key
-    /// material and the DP layer's state are not written to checkpoints.</summary>
-    public bool Checkpointable => Scheme is ClearScheme.PlainName or ClearScheme.PrivateColumnsName;
+    /// <summary>Whether the hosts can checkpoint this run (<c>--state</c>): the clear schemes only, the rule the state
+    /// machines' snapshots apply to the scheme object itself; the masked-sums key material and the DP layer's state are
+    /// not written to checkpoints.</summary>
+    public bool Checkpointable => FederationSchemes.FromName(Scheme) is ClearScheme;
 
     /// <summary>Throws when the run cannot be checkpointed (see <see cref="Checkpointable"/>), before any process starts work.</summary>
     /// <exception cref="ArgumentException">The scheme keeps state the checkpoints do not hold.</exception>

@@ -153,6 +153,10 @@ public sealed class MaskedSumsHostTests
         Assert.Contains("masked-sums", e.Message, StringComparison.Ordinal);
         Assert.False(File.Exists(Path.Combine(dir, CoordinatorEngine.CheckpointFileName)));
         Assert.Throws<ArgumentException>(() => (HostedRunTests.Small with { Scheme = "dp-masked-sums" }).RequireCheckpointable());
+        Assert.Throws<ArgumentException>(() => (HostedRunTests.Small with { Scheme = "dp" }).RequireCheckpointable());
+        // Exactly the clear schemes checkpoint.
+        Assert.Equal(["plain", "private-columns"],
+            FedGrid.Federation.Schemes.FederationSchemes.Names.Where(n => (HostedRunTests.Small with { Scheme = n }).Checkpointable));
         HostedRunTests.Small.RequireCheckpointable();
         (HostedRunTests.Small with { Scheme = "private-columns" }).RequireCheckpointable();
         Assert.Throws<ArgumentException>(() => (HostedRunTests.Small with { Scheme = "sealed" }).Validate());
