@@ -65,17 +65,22 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
         log.LogInformation("household '{Id}' connected as index {Index} from {Peer}", session.Id, session.Index, context.Peer);
         engine.Post(session, first);
         using var stop = CancellationTokenSource.CreateLinkedTokenSource(cancel);
-        Task writer = WriteAsync(session, responseStream, stop.Token);
+        Task writer = WriteAsync(session, responseStream, stop.Token, cancel);
         Task reader = ReadAsync(session, requestStream, stop.Token);
         try
         {
             Task ended = await Task.WhenAny(writer, reader, session.Fault.Task);
             if (ended == session.Fault.Task)
             {
+                await StopWriting(stop, writer);
                 throw new RpcException(session.Fault.Task.Result);
             }
             if (ended == reader)
             {
+                if (reader.IsFaulted)
+                {
+                    await StopWriting(stop, writer);
+                }
                 await reader; // throws a check failure
                 await writer; // the household closed its side: send what is left
             }
@@ -129,12 +134,25 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
         }
     }
 
-    private static async Task WriteAsync(HouseholdSession session, IServerStreamWriter<CoordinatorMessage> responses, CancellationToken cancel)
+    /// <summary>
+    /// Sends the session's outgoing messages until <paramref name="stopTaking"/>. A write in progress is not cancelled by
+    /// it (only by <paramref name="callAborted"/>, the call's own token): ending the call with an error status while a
+    /// write is in flight makes the server reset the stream (INTERNAL_ERROR) instead of sending that status.
+    /// </summary>
+    private static async Task WriteAsync(HouseholdSession session, IServerStreamWriter<CoordinatorMessage> responses, CancellationToken stopTaking,
+        CancellationToken callAborted)
     {
-        await foreach (CoordinatorMessage m in session.Outgoing.Reader.ReadAllAsync(cancel))
+        await foreach (CoordinatorMessage m in session.Outgoing.Reader.ReadAllAsync(stopTaking))
         {
-            await responses.WriteAsync(m, cancel);
+            await responses.WriteAsync(m, callAborted);
         }
+    }
+
+    /// <summary>Stops taking outgoing messages and waits for the write in flight, before the call ends with an error status.</summary>
+    private static async Task StopWriting(CancellationTokenSource stop, Task writer)
+    {
+        await stop.CancelAsync();
+        await writer.ContinueWith(_ => { }, CancellationToken.None, TaskContinuationOptions.ExecuteSynchronously, TaskScheduler.Default);
     }
 
     private RpcException Log(RpcException e)

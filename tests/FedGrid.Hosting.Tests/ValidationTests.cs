@@ -40,9 +40,11 @@ public sealed class ValidationTests
             foreach (HouseholdMessage m in messages) await call.RequestStream.WriteAsync(m);
             await call.RequestStream.CompleteAsync();
         }
-        catch (Exception e) when (e is RpcException or InvalidOperationException)
+        catch (Exception e) when (e is RpcException or InvalidOperationException or IOException or HttpRequestException or NullReferenceException)
         {
-            // The coordinator ended the call while we were still writing; its status comes with the response.
+            // The coordinator ended the call while we were still writing; its status comes with the response. A stream
+            // reset in the middle of a large write can surface from the HTTP/2 client as a transport error, and (seen once
+            // in CI) as a NullReferenceException inside Http2Stream.SendDataAsync: the client library's race, not ours.
         }
         try
         {
@@ -125,7 +127,7 @@ public sealed class ValidationTests
             Assert.Equal(2, call.ResponseStream.Current.Accepted.HouseholdIndex);
             await call.RequestStream.WriteAsync(Sums(0, 0, 0));
             var e = await Assert.ThrowsAsync<RpcException>(async () => { while (await call.ResponseStream.MoveNext()) { } });
-            Assert.Equal(StatusCode.PermissionDenied, e.StatusCode);
+            Assert.True(e.StatusCode == StatusCode.PermissionDenied, e.ToString());
             Assert.True(c.Logged("sent a message as index 0"));
         }
         await Task.WhenAll(honest).WaitAsync(TimeSpan.FromSeconds(5)).ContinueWith(_ => { });
