@@ -100,7 +100,24 @@ public sealed record RoundObservation
 /// <param name="Neurons">H, first-layer width.</param>
 /// <param name="WeightDelta">ΔW_m, H × n_m row-major.</param>
 /// <param name="BiasDelta">Δb, H.</param>
-public sealed record FirstLayerUpdate(int Neurons, double[] WeightDelta, double[] BiasDelta);
+public sealed record FirstLayerUpdate(int Neurons, double[] WeightDelta, double[] BiasDelta)
+{
+    /// <summary>
+    /// Half-widths of the rounding intervals of <see cref="WeightDelta"/> (same layout), or null when unknown: the uploaded
+    /// parameter is the household's trained value rounded to the wire format (float32), so its unrounded change lies within
+    /// ± this of the delta (half the float32 gap at the uploaded value).
+    /// </summary>
+    public double[]? WeightRounding { get; init; }
+
+    /// <summary>Half-widths of the rounding intervals of <see cref="BiasDelta"/>, or null when unknown (see <see cref="WeightRounding"/>).</summary>
+    public double[]? BiasRounding { get; init; }
+
+    /// <summary>Half the float32 gap at <paramref name="value"/> (the larger of the gaps below and above): round-to-nearest moves a real number that rounds to it by at most this much.</summary>
+    /// <param name="value">A float32 value.</param>
+    /// <returns>The half-gap.</returns>
+    public static double HalfGap(float value) =>
+        0.5 * Math.Max((double)MathF.BitIncrement(value) - value, value - (double)MathF.BitDecrement(value));
+}
 
 /// <summary>Public prior of one quantity for one household: a mean profile over the horizon and a typical spread.</summary>
 /// <param name="MeanKw">Prior mean at each slot, kW.</param>

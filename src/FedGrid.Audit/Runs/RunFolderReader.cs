@@ -311,8 +311,13 @@ public static class RunFolderReader
                         if (up.Scope != ParameterScope.OwnColumnsAndShared || wa[m] is null || !roundBias.TryGetValue(up.Round, out var bias)) break;
                         double[] newA = ToDouble(up.ActorParameters, 0, ha * n), newC = ToDouble(up.CriticParameters, 0, hc * n);
                         double[] upBiasA = ToDouble(up.ActorParameters, ha * n, ha), upBiasC = ToDouble(up.CriticParameters, hc * n, hc);
-                        var updates = new List<FirstLayerUpdate> { new(ha, Diff(newA, wa[m]), Diff(upBiasA, bias.A)) };
-                        if (hc > 0 && wc[m] is not null) updates.Add(new FirstLayerUpdate(hc, Diff(newC, wc[m]), Diff(upBiasC, bias.C)));
+                        // Uploads are float32: each change carries the rounding interval of the uploaded value.
+                        var updates = new List<FirstLayerUpdate>
+                        {
+                            new(ha, Diff(newA, wa[m]), Diff(upBiasA, bias.A)) { WeightRounding = HalfGaps(newA), BiasRounding = HalfGaps(upBiasA) },
+                        };
+                        if (hc > 0 && wc[m] is not null)
+                            updates.Add(new FirstLayerUpdate(hc, Diff(newC, wc[m]), Diff(upBiasC, bias.C)) { WeightRounding = HalfGaps(newC), BiasRounding = HalfGaps(upBiasC) });
                         uploads[(m, up.Round)] = ([.. updates], up.SampleCount);
                         // The household keeps its trained columns: they are W_m of the next round.
                         wa[m] = newA;
@@ -390,6 +395,13 @@ public static class RunFolderReader
     {
         var r = new double[after.Length];
         for (int i = 0; i < r.Length; i++) r[i] = after[i] - before[i];
+        return r;
+    }
+
+    private static double[] HalfGaps(double[] float32Values)
+    {
+        var r = new double[float32Values.Length];
+        for (int i = 0; i < r.Length; i++) r[i] = FirstLayerUpdate.HalfGap((float)float32Values[i]);
         return r;
     }
 
