@@ -95,20 +95,22 @@ public sealed class RunFolderTests(ITestOutputHelper output)
     [Fact]
     public void One_local_sample_sgd_upload_recovers_the_trained_state()
     {
-        // Learning rate 3e-2: steps large enough that float32 upload − broadcast keeps four digits.
+        // Learning rate 3e-2: steps large enough that float32 upload − broadcast keeps four digits. Measured: least squares
+        // 2.5e-4, set-membership 1.4e-5.
         (double iv, double ls) = UploadErrorOnTrainedSlots(3e-2);
         Assert.True(ls <= 1e-3, $"least squares, pooled over trained slots {ls}");
-        Assert.True(iv <= ls, $"set-membership {iv} against least squares {ls}");
+        Assert.True(iv <= 5e-5, $"set-membership, pooled over trained slots {iv}");
     }
 
     [Fact]
-    public void One_local_sample_upload_at_the_default_learning_rate_is_limited_by_float32_quantisation()
+    public void One_local_sample_upload_at_the_default_learning_rate_meets_one_in_a_thousand_from_the_rounding_intervals()
     {
         // Default rates (actor 3e-4, critic 1e-3) with clipping move weights of order 0.1 by about 1e-6: upload − broadcast keeps
-        // two digits. Least squares measured 2.5e-2; the set-membership estimate MEASURED_IV.
+        // two or three digits. Measured: least squares 3.5e-3 (float32 quantisation, falling like 1/√rows), set-membership
+        // 1.2e-4 (the intersection of the rows' rounding boxes, falling like 1/rows); issue 6's goal is 1e-3.
         (double iv, double ls) = UploadErrorOnTrainedSlots(null);
         Assert.True(ls is > 1e-3 and < 0.1, $"least squares, pooled over trained slots {ls}");
-        Assert.True(iv < ls, $"set-membership {iv} against least squares {ls}");
+        Assert.True(iv <= 3e-4, $"set-membership, pooled over trained slots {iv}");
     }
 
     [Fact]
