@@ -149,6 +149,7 @@ internal static class TrainFederated
             MinQuorum = f.MinQuorum ?? 1,
             StepsPerRound = stepsPerRound,
             WarmStartSteps = warmDays * SlotCalendar.SlotsPerDay,
+            LocalTraining = new LocalTrainingOptions { KeepOptimiserState = true },
         };
         IProjectionInputsForm form = ProjectionInputsForms.FromName(f.ProjectionInputs ?? HouseholdProjectionInputs.FormName);
         const string transcriptName = "transcript" + TranscriptFormat.Extension;

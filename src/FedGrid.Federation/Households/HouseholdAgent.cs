@@ -132,6 +132,9 @@ public sealed class HouseholdAgent
     /// <summary>The actor's and critic's losses of the last pass of the household's last local warm start, or null before one.</summary>
     public (double ActorLoss, double CriticLoss)? LastWarmStartLoss { get; private set; }
 
+    /// <summary>Optimiser steps of the household's local training since its optimisers were last reset.</summary>
+    public long LocalOptimiserSteps => _trainer?.Steps ?? 0;
+
     /// <summary>Transitions in the household's buffer.</summary>
     public int BufferedTransitions => _buffer?.Count ?? 0;
 
@@ -381,7 +384,10 @@ public sealed class HouseholdAgent
         var (cso, csn) = _critic!.SharedRange();
         _schemeSide!.ModelLoaded(_actor.Parameters.Slice(aso, asn), _critic.Parameters.Slice(cso, csn));
         _hasModel = true;
-        _trainer!.ResetOptimisers();
+        if (!_options.LocalTraining.KeepOptimiserState)
+        {
+            _trainer!.ResetOptimisers();
+        }
         _round = model.Round;
         _rejoining = false;
         Phase = HouseholdPhase.Ready;
@@ -576,7 +582,8 @@ public sealed class HouseholdAgent
     private const int SnapshotVersion = 1;
 
     /// <summary>Whether the machine can be checkpointed now: every step of the round done, before its training call is taken.</summary>
-    public bool CanSnapshot => Phase == HouseholdPhase.Ready && _hasModel && _pendingTrainingRound < 0 && _buffer is not null;
+    public bool CanSnapshot => Phase == HouseholdPhase.Ready && _hasModel && _pendingTrainingRound < 0 && _buffer is not null
+        && !_options.LocalTraining.KeepOptimiserState;
 
     /// <summary>
     /// Writes the household's own state at a round end (after the round's steps, before its training call): round, last
@@ -590,6 +597,10 @@ public sealed class HouseholdAgent
     public void WriteSnapshot(BinaryWriter writer)
     {
         ArgumentNullException.ThrowIfNull(writer);
+        if (_options.LocalTraining.KeepOptimiserState)
+        {
+            throw new NotSupportedException($"household {_index} keeps its optimiser moments across rounds (LocalTrainingOptions.KeepOptimiserState); they are not checkpointed");
+        }
         if (!CanSnapshot)
         {
             throw new InvalidOperationException($"household {_index} can be checkpointed at a round end only (phase {Phase})");

@@ -5,7 +5,7 @@ namespace FedGrid.Federation.Protocol;
 /// <summary>Which optimiser a household's local training uses.</summary>
 public enum LocalOptimiser
 {
-    /// <summary>Adam (Kingma &amp; Ba 2015), moments reset after every broadcast.</summary>
+    /// <summary>Adam (Kingma &amp; Ba 2015), moments reset after every broadcast unless <see cref="LocalTrainingOptions.KeepOptimiserState"/>.</summary>
     Adam,
     /// <summary>Plain stochastic gradient descent (used by the FedAvg identity checks).</summary>
     Sgd,
@@ -26,6 +26,13 @@ public sealed record LocalTrainingOptions
 
     /// <summary>One window holding every transition of the round (one full-batch step per epoch).</summary>
     public bool FullBatch { get; init; }
+
+    /// <summary>
+    /// Keep the household's optimiser moments (and Adam's step count) across broadcasts instead of resetting them when a
+    /// model arrives. The moments are the household's own state, never sent; the parameters they step are the broadcast
+    /// ones. Off by default (each round starts with fresh moments); a household that keeps them cannot be checkpointed.
+    /// </summary>
+    public bool KeepOptimiserState { get; init; }
 
     /// <summary>How a household fits the demonstrated rows of a warm-start round (<see cref="FederationOptions.WarmStartSteps"/>).</summary>
     public LocalWarmStartOptions WarmStart { get; init; } = new();
