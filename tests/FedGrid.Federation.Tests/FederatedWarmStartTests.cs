@@ -9,13 +9,15 @@ using FedGrid.Learning.ActorCritic;
 using FedGrid.Learning.Networks;
 using FedGrid.Learning.Randomness;
 
+using Xunit.Abstractions;
+
 namespace FedGrid.Federation.Tests;
 
 /// <summary>
 /// The federated warm start (<see cref="FederationOptions.WarmStartSteps"/>): the households act with the price rule on
 /// the first round(s) and clone it on their own rows through the split first layer, with the same messages as any round.
 /// </summary>
-public sealed class FederatedWarmStartTests
+public sealed class FederatedWarmStartTests(ITestOutputHelper output)
 {
     private static FederationOptions Warm(int stepsPerRound, int warmSteps) => TestRuns.Options(stepsPerRound) with
     {
@@ -105,9 +107,12 @@ public sealed class FederatedWarmStartTests
             TrainingDefaults.WarmStartEpochs, TrainingDefaults.WarmStartBatch, TrainingDefaults.WarmStartEdge, TrainingDefaults.WarmStartLearningRate);
         double central = CloneError(learner.Actor, states, targets, active);
 
-        // Measured (this test's first run): federated 1.64 → 0.19, centralized 1.64 → 0.04 (see the figures in the message).
-        Assert.True(central < 0.25 * centralBefore, $"centralized clone error {centralBefore:F3} → {central:F3}");
-        Assert.True(federated < 0.25 * before, $"federated clone error {before:F3} → {federated:F3} (centralized {centralBefore:F3} → {central:F3})");
+        output.WriteLine($"clone error: federated {before:F4} -> {federated:F4}, centralized {centralBefore:F4} -> {central:F4}");
+        // Measured: both start at 3.12 (the coordinator's initial model is the centralized learner's for this seed); the
+        // centralized clone reaches 0.037, the federated one 0.70 after averaging: each household fits its own head with
+        // the others' sums held at their start, and the averaged shared layers serve all 32 heads (README "Federated warm start").
+        Assert.True(central < 0.05 * centralBefore, $"centralized clone error {centralBefore:F3} → {central:F3}");
+        Assert.True(federated < 0.3 * before, $"federated clone error {before:F3} → {federated:F3} (centralized {centralBefore:F3} → {central:F3})");
         foreach (var h in run.Households)
         {
             Assert.NotNull(h.LastWarmStartLoss);
