@@ -39,7 +39,9 @@ public sealed record HouseholdIdentity(string Id, string BusId, double TanPhi, i
 /// outputs are the messages it returns. Per decision step it sends its partial sums, completes the forward pass with
 /// the others' sums, proposes a setpoint inside its box, sends the projection inputs (through the
 /// <see cref="IProjectionInputsForm"/>), applies the final setpoint and observes its own cost. At a round's end, when
-/// called, it trains on its own transitions and uploads. It holds only its own data; nothing is shared with the
+/// called, it trains on its own transitions and uploads. On the warm-start steps (<see cref="FederationOptions.WarmStartSteps"/>)
+/// it proposes its demonstrator's setpoint instead of sampling its policy and, at those rounds' ends, clones it
+/// (<see cref="LocalTrainer.WarmStart"/>) before it uploads; the messages are the same. It holds only its own data; nothing is shared with the
 /// coordinator except through returned messages.
 /// <para>
 /// Returned messages are reused by the next call (allocation-free decision steps): send or copy them first. A message
@@ -588,7 +590,8 @@ public sealed class HouseholdAgent
     /// <summary>
     /// Writes the household's own state at a round end (after the round's steps, before its training call): round, last
     /// step, its readings of that step, its full networks (its own columns included), the round's transitions and its
-    /// exploration generator. The optimisers need nothing: they are reset whenever a model arrives and step only in training.
+    /// exploration generator. The optimisers need nothing: they are reset whenever a model arrives and step only in
+    /// training (a household that keeps them, <see cref="LocalTrainingOptions.KeepOptimiserState"/>, is refused).
     /// The admission is not part of it (the caller keeps the <see cref="JoinAccepted"/> and passes it to <see cref="RestoreSnapshot"/>).
     /// </summary>
     /// <param name="writer">Where to write.</param>

@@ -103,6 +103,11 @@ public sealed record FederatedRunResult(TrainingRun Run, string Scheme, int Roun
 /// gateway no longer controls its flexible load: the world runs it at the desired power (no curtailment) until the
 /// household rejoins at a later round's start.
 /// </para>
+/// <para>
+/// Warm start (<see cref="FederationOptions.WarmStartSteps"/>): on those steps each simulated gateway runs the price rule
+/// of the centralized warm start (<see cref="PriceThresholdPolicy"/> with <see cref="TrainingDefaults.RuleThreshold"/>) on
+/// its own readings and the public prices and hands its setpoint to its household machine as the step's demonstration.
+/// </para>
 /// </summary>
 public sealed class InProcessFederation : ICoordinatorOutbox
 {
