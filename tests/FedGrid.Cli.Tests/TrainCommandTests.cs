@@ -79,10 +79,10 @@ public class TrainCommandTests
     }
 
     [Theory]
-    [InlineData("centralized", "q-learning", 1, "--warm-start-days applies to --mode centralized --learner actor-critic only")]
-    [InlineData("federated", "actor-critic", 1, "--warm-start-days applies to --mode centralized --learner actor-critic only")]
+    [InlineData("centralized", "q-learning", 1, "--warm-start-days applies to --learner actor-critic only")]
     [InlineData("centralized", "actor-critic", -1, "--warm-start-days must be 0 or more, got -1")]
-    public void Warm_start_days_only_for_centralized_actor_critic(string mode, string learner, int warm, string message)
+    [InlineData("federated", "actor-critic", -1, "--warm-start-days must be 0 or more, got -1")]
+    public void Warm_start_days_only_for_the_actor_critic(string mode, string learner, int warm, string message)
     {
         var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, learner, Days: 2, WarmStartDays: warm)));
         Assert.Contains(message, e.Message);

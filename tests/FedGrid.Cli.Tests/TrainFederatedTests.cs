@@ -38,6 +38,7 @@ public class TrainFederatedTests
             Assert.Equal(JsonValueKind.Null, root.GetProperty("epsilon").ValueKind); // no DP under private-columns
             Assert.Equal(JsonValueKind.Null, root.GetProperty("delta").ValueKind);
             Assert.Equal("mean", root.GetProperty("aggregation").GetString());
+            Assert.Equal(1, root.GetProperty("warmStartDays").GetInt32()); // the centralized default
             Assert.True(File.Exists(Path.Combine(dir, "ground-truth.simulation-only.csv")));
             Assert.True(File.Exists(Path.Combine(dir, "daily.csv")));
             Assert.Equal("transcript.fgt", root.GetProperty("files").GetProperty("transcript").GetString());
@@ -48,6 +49,34 @@ public class TrainFederatedTests
             Assert.Contains("train: federated private-columns (household projection inputs): day 1/1", err);
         }
         finally { Directory.Delete(dir, true); }
+    }
+
+    [Fact]
+    public void On_the_warm_start_day_the_federated_run_costs_what_the_centralized_one_does()
+    {
+        // Both warm-start from the same price rule on day 1 (default --warm-start-days 1), so the day's setpoints, the
+        // projection and hence the costs are the same; the federated households only clone the rule at the day's end.
+        static double Cost(string mode)
+        {
+            string dir = Path.Combine(Path.GetTempPath(), "fedgrid-trainfed-warm-" + Guid.NewGuid().ToString("N"));
+            var stdout = new StringWriter();
+            try
+            {
+                Assert.Equal(0, TrainCommand.Run(new TrainOptions(mode, "actor-critic", Days: 1, OutDir: dir, Json: true), stdout, new StringWriter()));
+                using var doc = JsonDocument.Parse(stdout.ToString());
+                return doc.RootElement.GetProperty("finalDailyCost").GetDouble();
+            }
+            finally { Directory.Delete(dir, true); }
+        }
+        Assert.Equal(Cost("centralized"), Cost("federated"), 6);
+    }
+
+    [Fact]
+    public void Warm_start_days_must_fill_whole_rounds()
+    {
+        var e = Assert.Throws<UserInputException>(() => TrainCommand.Run(new TrainOptions("federated", "actor-critic", Days: 1,
+            Federated: new FederatedTrainOptions("plain", StepsPerRound: 5)), new StringWriter(), new StringWriter()));
+        Assert.Contains("--warm-start-days 1 (96 steps) is not a whole number of rounds of --steps-per-round 5", e.Message);
     }
 
     [Fact]

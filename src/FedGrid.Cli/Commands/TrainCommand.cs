@@ -55,7 +55,7 @@ internal static class TrainCommand
         var json = new Option<bool>("--json") { Description = "print only the summary as JSON on stdout" };
         var warm = new Option<int?>("--warm-start-days")
         {
-            Description = $"centralized actor-critic: days the price rule acts before the learner clones it and takes over, 0 = none (default {TrainingDefaults.WarmStartDays})",
+            Description = $"actor-critic (centralized or federated): days the price rule acts before the learner clones it and takes over (federated: each household on its own rows), 0 = none (default {TrainingDefaults.WarmStartDays})",
         };
         var (fedOptions, readFed) = TrainFederated.CreateOptions();
         var cmd = new Command("train", "Train a demand-response learner on the default scenario (or a scenario file) with the safety projection every slot; compare it with no control and the daily optimum on the same days.")
@@ -81,9 +81,9 @@ internal static class TrainCommand
         TrainFederated.Validate(options);
         if (options.Days is < 1 or > 366)
             throw new UserInputException($"--days must be between 1 and 366, got {options.Days}");
-        if (options.WarmStartDays is { } w && (w < 0 || options.Mode != "centralized" || learner != LearnerKind.ActorCritic))
+        if (options.WarmStartDays is { } w && (w < 0 || learner != LearnerKind.ActorCritic))
             throw new UserInputException(w < 0 ? $"--warm-start-days must be 0 or more, got {w}"
-                : "--warm-start-days applies to --mode centralized --learner actor-critic only");
+                : "--warm-start-days applies to --learner actor-critic only");
         if (options.ScenarioPath is not null && options.Days is not null)
             throw new UserInputException("--scenario takes its days from the file: drop --days");
 

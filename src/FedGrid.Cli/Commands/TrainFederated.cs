@@ -136,13 +136,20 @@ internal static class TrainFederated
         string rule = Aggregations.First(a => a.Key == aggregation).Value;
         double trim = f.TrimFraction ?? UploadAggregators.DefaultTrimFraction;
         IFederationScheme scheme = FederationSchemes.FromName(f.Scheme ?? ClearScheme.PlainName, () => UploadAggregators.Create(rule, trim), Privacy(f));
+        // The centralized actor-critic's settings, seed and warm start (the price rule acts on the first days, then each
+        // household clones it on its own rows): the same budget and starting point.
+        int warmDays = Math.Min(days, c.WarmStartDays ?? TrainingDefaults.WarmStartDays);
+        int stepsPerRound = f.StepsPerRound ?? SlotCalendar.SlotsPerDay;
+        if (warmDays * SlotCalendar.SlotsPerDay % stepsPerRound != 0)
+            throw new UserInputException($"--warm-start-days {warmDays} ({warmDays * SlotCalendar.SlotsPerDay} steps) is not a whole number of rounds of --steps-per-round {stepsPerRound}");
         var fed = new FederationOptions
         {
-            // The centralized actor-critic's settings and seed: the same budget and starting point.
-            Learning = TrainingDefaults.ActorCritic with { Seed = LearningRandom.DeriveSeed(c.Seed, 0xAC) },
+            Learning = (warmDays > 0 ? TrainingDefaults.WarmStartedActorCritic : TrainingDefaults.ActorCritic) with { Seed = LearningRandom.DeriveSeed(c.Seed, 0xAC) },
             Participation = f.Participation ?? 1,
             MinQuorum = f.MinQuorum ?? 1,
-            StepsPerRound = f.StepsPerRound ?? SlotCalendar.SlotsPerDay,
+            StepsPerRound = stepsPerRound,
+            WarmStartSteps = warmDays * SlotCalendar.SlotsPerDay,
+            LocalTraining = new LocalTrainingOptions { KeepOptimiserState = true },
         };
         IProjectionInputsForm form = ProjectionInputsForms.FromName(f.ProjectionInputs ?? HouseholdProjectionInputs.FormName);
         const string transcriptName = "transcript" + TranscriptFormat.Extension;
@@ -170,6 +177,7 @@ internal static class TrainFederated
                 new("transcriptRecords", (long)r.TranscriptRecords),
                 new("bytesPerHouseholdPerStep", Math.Round(r.BytesPerHouseholdPerStep, 1)),
                 new("aggregation", aggregation),
+                new("warmStartDays", warmDays),
         };
         if (rule == TrimmedMeanAggregator.RuleName) extra.Add(new("trimFraction", trim));
         PrivacyGuarantee? dp = null;

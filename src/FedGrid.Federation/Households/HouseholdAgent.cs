@@ -39,7 +39,9 @@ public sealed record HouseholdIdentity(string Id, string BusId, double TanPhi, i
 /// outputs are the messages it returns. Per decision step it sends its partial sums, completes the forward pass with
 /// the others' sums, proposes a setpoint inside its box, sends the projection inputs (through the
 /// <see cref="IProjectionInputsForm"/>), applies the final setpoint and observes its own cost. At a round's end, when
-/// called, it trains on its own transitions and uploads. It holds only its own data; nothing is shared with the
+/// called, it trains on its own transitions and uploads. On the warm-start steps (<see cref="FederationOptions.WarmStartSteps"/>)
+/// it proposes its demonstrator's setpoint instead of sampling its policy and, at those rounds' ends, clones it
+/// (<see cref="LocalTrainer.WarmStart"/>) before it uploads; the messages are the same. It holds only its own data; nothing is shared with the
 /// coordinator except through returned messages.
 /// <para>
 /// Returned messages are reused by the next call (allocation-free decision steps): send or copy them first. A message
@@ -68,7 +70,7 @@ public sealed class HouseholdAgent
     private float[] _lo = [], _hi = [], _action = [];
     private int _index = -1, _householdCount, _stepsPerRound, _round;
     private long _step = -1;
-    private double _flexMin, _flexMax, _baseKw, _proposal, _setpoint;
+    private double _flexMin, _flexMax, _baseKw, _proposal, _setpoint, _demonstration = double.NaN;
     private int _pendingTrainingRound = -1;
     private bool _pendingSelected, _hasModel, _rejoining, _stepStored;
     private readonly RejoinRequest _rejoin = new();
@@ -128,6 +130,12 @@ public sealed class HouseholdAgent
     public DenseNetwork Critic => _critic ?? throw new InvalidOperationException("not admitted yet");
 
     internal TransitionBuffer? Buffer => _buffer;
+
+    /// <summary>The actor's and critic's losses of the last pass of the household's last local warm start, or null before one.</summary>
+    public (double ActorLoss, double CriticLoss)? LastWarmStartLoss { get; private set; }
+
+    /// <summary>Optimiser steps of the household's local training since its optimisers were last reset.</summary>
+    public long LocalOptimiserSteps => _trainer?.Steps ?? 0;
 
     /// <summary>Transitions in the household's buffer.</summary>
     public int BufferedTransitions => _buffer?.Count ?? 0;
@@ -216,8 +224,15 @@ public sealed class HouseholdAgent
     /// <param name="flexMinKw">Least flexible power of the slot, kW.</param>
     /// <param name="flexMaxKw">Desired flexible power of the slot, kW.</param>
     /// <param name="baseKw">Base load of the slot, kW.</param>
+    /// <param name="demonstrationKw">
+    /// On a warm-start step (step &lt; <see cref="FederationOptions.WarmStartSteps"/>, required there and refused elsewhere):
+    /// the setpoint the household's own demonstrator rule picks from its own readings and public prices. The household
+    /// then proposes it (clamped to its box) instead of sampling its policy, and stores its cloned pre-squash target
+    /// (<see cref="FedGrid.Learning.ActorCritic.ActorCriticLearner.CloneTarget"/>) for the round-end warm start.
+    /// </param>
     /// <returns>The partial-sums message to send.</returns>
-    public HouseholdMessage BeginStep(long step, ReadOnlySpan<float> features, double flexMinKw, double flexMaxKw, double baseKw)
+    public HouseholdMessage BeginStep(long step, ReadOnlySpan<float> features, double flexMinKw, double flexMaxKw, double baseKw,
+        double? demonstrationKw = null)
     {
         Expect(HouseholdPhase.Ready, "begin a step");
         if (step / _stepsPerRound != _round)
@@ -236,6 +251,14 @@ public sealed class HouseholdAgent
         {
             throw new ArgumentException($"flexible box [{flexMinKw}, {flexMaxKw}] kW is inverted");
         }
+        bool warm = step < _options.WarmStartSteps;
+        if (warm != demonstrationKw.HasValue || (demonstrationKw is { } dk && !double.IsFinite(dk)))
+        {
+            throw new ArgumentException(warm
+                ? $"household {_index}: step {step} is a warm-start step (the first {_options.WarmStartSteps}); a finite demonstration setpoint is needed"
+                : $"household {_index}: step {step} is past the warm start ({_options.WarmStartSteps} steps); no demonstration is taken", nameof(demonstrationKw));
+        }
+        _demonstration = demonstrationKw ?? double.NaN;
         _step = step;
         features.CopyTo(_x);
         _flexMin = flexMinKw;
@@ -363,7 +386,10 @@ public sealed class HouseholdAgent
         var (cso, csn) = _critic!.SharedRange();
         _schemeSide!.ModelLoaded(_actor.Parameters.Slice(aso, asn), _critic.Parameters.Slice(cso, csn));
         _hasModel = true;
-        _trainer!.ResetOptimisers();
+        if (!_options.LocalTraining.KeepOptimiserState)
+        {
+            _trainer!.ResetOptimisers();
+        }
         _round = model.Round;
         _rejoining = false;
         Phase = HouseholdPhase.Ready;
@@ -444,7 +470,13 @@ public sealed class HouseholdAgent
         }
         Span<float> pre = b.PreSquashRow(row);
         var learning = _options.Learning;
-        for (int j = 0; j < k; j++)
+        for (int j = 0; !double.IsNaN(_demonstration) && j < k; j++)
+        {
+            // Warm start: the household's own rule acts; the row keeps the target its actor will be fitted to.
+            _action[j] = Math.Clamp((float)_demonstration, _lo[j], _hi[j]);
+            pre[j] = FedGrid.Learning.ActorCritic.ActorCriticLearner.CloneTarget(_action[j], _lo[j], _hi[j], _options.LocalTraining.WarmStart.Edge, out _);
+        }
+        for (int j = 0; double.IsNaN(_demonstration) && j < k; j++)
         {
             float mean = _actorOut[2 * k * _index + j];
             float logStd = SquashedGaussian.LogStd(_actorOut[2 * k * _index + k + j], learning.LogStdMin, learning.LogStdMax);
@@ -486,7 +518,17 @@ public sealed class HouseholdAgent
         HouseholdMessage? reply = null;
         if (selected)
         {
-            int samples = _trainer!.Train(b);
+            int samples;
+            if ((long)round * _stepsPerRound < _options.WarmStartSteps)
+            {
+                // A warm-start round (whole rounds; FederationOptions.Validate): every row was demonstrated.
+                LastWarmStartLoss = _trainer!.WarmStart(b, LearningRandom.DeriveSeed(LearningRandom.DeriveSeed(_seed, 4), (ulong)round));
+                samples = b.Count;
+            }
+            else
+            {
+                samples = _trainer!.Train(b);
+            }
             int m = _index;
             if (_scheme.ColumnsCrossWire)
             {
@@ -542,12 +584,14 @@ public sealed class HouseholdAgent
     private const int SnapshotVersion = 1;
 
     /// <summary>Whether the machine can be checkpointed now: every step of the round done, before its training call is taken.</summary>
-    public bool CanSnapshot => Phase == HouseholdPhase.Ready && _hasModel && _pendingTrainingRound < 0 && _buffer is not null;
+    public bool CanSnapshot => Phase == HouseholdPhase.Ready && _hasModel && _pendingTrainingRound < 0 && _buffer is not null
+        && !_options.LocalTraining.KeepOptimiserState;
 
     /// <summary>
     /// Writes the household's own state at a round end (after the round's steps, before its training call): round, last
     /// step, its readings of that step, its full networks (its own columns included), the round's transitions and its
-    /// exploration generator. The optimisers need nothing: they are reset whenever a model arrives and step only in training.
+    /// exploration generator. The optimisers need nothing: they are reset whenever a model arrives and step only in
+    /// training (a household that keeps them, <see cref="LocalTrainingOptions.KeepOptimiserState"/>, is refused).
     /// The admission is not part of it (the caller keeps the <see cref="JoinAccepted"/> and passes it to <see cref="RestoreSnapshot"/>).
     /// </summary>
     /// <param name="writer">Where to write.</param>
@@ -556,6 +600,10 @@ public sealed class HouseholdAgent
     public void WriteSnapshot(BinaryWriter writer)
     {
         ArgumentNullException.ThrowIfNull(writer);
+        if (_options.LocalTraining.KeepOptimiserState)
+        {
+            throw new NotSupportedException($"household {_index} keeps its optimiser moments across rounds (LocalTrainingOptions.KeepOptimiserState); they are not checkpointed");
+        }
         if (!CanSnapshot)
         {
             throw new InvalidOperationException($"household {_index} can be checkpointed at a round end only (phase {Phase})");

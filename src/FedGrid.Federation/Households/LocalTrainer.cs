@@ -2,6 +2,7 @@ using FedGrid.Federation.Protocol;
 using FedGrid.Learning.ActorCritic;
 using FedGrid.Learning.Networks;
 using FedGrid.Learning.Optimisation;
+using FedGrid.Learning.Randomness;
 
 namespace FedGrid.Federation.Households;
 
@@ -106,6 +107,9 @@ public sealed class LocalTrainer
     private readonly float[] _actorGrad, _criticGrad, _actorOut, _actorOutGrad, _values, _valueGrad;
     private readonly float[] _returnBuffer;
     private readonly (int Offset, int Length)[] _actorRanges, _criticRanges;
+    private Adam? _warmActorOpt, _warmCriticOpt;
+    private int[] _warmOrder = [];
+    private float[] _warmTargets = [];
 
     internal LocalTrainer(int household, DenseNetwork actor, DenseNetwork critic, ActorCriticOptions learning, LocalTrainingOptions local)
     {
@@ -188,6 +192,105 @@ public sealed class LocalTrainer
             }
         }
         return usable;
+    }
+
+    /// <summary>
+    /// The local warm start on a round of demonstrated rows (<see cref="LocalWarmStartOptions"/>; the rule of
+    /// <see cref="ActorCriticLearner.WarmStart"/> restricted to household m): the actor's own means are fitted by least
+    /// squares to the cloned pre-squash targets the household stored as the rows' pre-squash actions (heads with an
+    /// empty box do not count), its own critic head to the discounted returns of its own scaled costs over rows
+    /// [0, Count − 1), bootstrapped by that head at row Count − 1 and recomputed every pass. Every forward pass is the
+    /// split one with the stored sums of the others, so gradients reach W_m and the shared parameters only. Adam with
+    /// the warm start's own step size and fresh moments; the round's optimisers are not touched.
+    /// </summary>
+    /// <param name="buffer">The household's demonstrated rows.</param>
+    /// <param name="seed">Seed of the shuffled order.</param>
+    /// <returns>The actor's mean squared pre-squash error (per row, halved) and the critic's of the last pass.</returns>
+    public (double ActorLoss, double CriticLoss) WarmStart(TransitionBuffer buffer, ulong seed)
+    {
+        ArgumentNullException.ThrowIfNull(buffer);
+        LocalWarmStartOptions o = _local.WarmStart;
+        int rows = buffer.Count, k = buffer.Actions;
+        if (rows < 1)
+        {
+            return (0, 0);
+        }
+        _warmActorOpt ??= new Adam(_actor.ParameterCount, o.LearningRate);
+        _warmCriticOpt ??= new Adam(_critic.ParameterCount, o.LearningRate);
+        _warmActorOpt.Reset();
+        _warmCriticOpt.Reset();
+        if (_warmOrder.Length < rows)
+        {
+            _warmOrder = new int[buffer.Capacity];
+            _warmTargets = new float[buffer.Capacity];
+        }
+        int[] order = _warmOrder;
+        float[] targets = _warmTargets;
+        for (int i = 0; i < rows; i++)
+        {
+            order[i] = i;
+        }
+        var shuffle = new LearningRandom(seed);
+        float gamma = (float)_learning.Gamma;
+        int criticRows = rows - 1; // the last row only bootstraps (its successor is not known yet)
+        double actorLoss = 0, criticLoss = 0;
+        for (int epoch = 0; epoch < o.Epochs; epoch++)
+        {
+            if (criticRows > 0)
+            {
+                float ret = CriticValue(buffer, rows - 1);
+                for (int i = criticRows - 1; i >= 0; i--)
+                {
+                    ret = (float)(buffer.Cost[i] * _learning.CostScale) + gamma * ret;
+                    targets[i] = ret;
+                }
+            }
+            for (int i = rows - 1; i > 0; i--)
+            {
+                int j = shuffle.NextInt(i + 1);
+                (order[i], order[j]) = (order[j], order[i]);
+            }
+            actorLoss = criticLoss = 0;
+            for (int start = 0; start < rows; start += o.BatchSize)
+            {
+                int end = Math.Min(rows, start + o.BatchSize);
+                float weight = 1f / (end - start);
+                Clear(_actorGrad, _actorRanges);
+                Clear(_criticGrad, _criticRanges);
+                for (int b = start; b < end; b++)
+                {
+                    int i = order[b];
+                    if (i < criticRows)
+                    {
+                        Array.Clear(_valueGrad);
+                        _critic.ForwardSplit(_m, buffer.StateRow(i), buffer.CriticOthersRow(i), _cw, _values);
+                        _returnBuffer[0] = targets[i];
+                        criticLoss += ActorCriticLoss.Critic(_values.AsSpan(_m, 1), _returnBuffer, weight, _valueGrad.AsSpan(_m, 1)) * (end - start) / criticRows;
+                        _critic.Backward(_cw, _valueGrad, _criticGrad);
+                    }
+                    _actor.ForwardSplit(_m, buffer.StateRow(i), buffer.ActorOthersRow(i), _aw, _actorOut);
+                    Array.Clear(_actorOutGrad);
+                    ReadOnlySpan<float> lo = buffer.LowerRow(i), hi = buffer.UpperRow(i), target = buffer.PreSquashRow(i);
+                    for (int j = 0; j < k; j++)
+                    {
+                        if (!(hi[j] - lo[j] > 1e-6f))
+                        {
+                            continue; // an empty box: no action to clone (ActorCriticLearner.CloneTarget)
+                        }
+                        int mean = 2 * k * _m + j;
+                        float d = _actorOut[mean] - target[j];
+                        _actorOutGrad[mean] = weight * d;
+                        actorLoss += 0.5 * d * d / rows;
+                    }
+                    _actor.Backward(_aw, _actorOutGrad, _actorGrad);
+                }
+                GradientClipping.ClipGlobalNorm(_criticGrad, _learning.MaxGradientNorm, _criticRanges);
+                GradientClipping.ClipGlobalNorm(_actorGrad, _learning.MaxGradientNorm, _actorRanges);
+                _warmCriticOpt.Step(_critic.Parameters, _criticGrad, _criticRanges);
+                _warmActorOpt.Step(_actor.Parameters, _actorGrad, _actorRanges);
+            }
+        }
+        return (actorLoss, criticLoss);
     }
 
     private float CriticValue(TransitionBuffer buffer, int row)

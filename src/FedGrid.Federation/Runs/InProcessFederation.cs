@@ -10,6 +10,7 @@ using FedGrid.Federation.Wire;
 using FedGrid.Grid.Projection;
 using FedGrid.Households;
 using FedGrid.Households.Scenarios;
+using FedGrid.Households.Simulation;
 using FedGrid.Learning.ActorCritic;
 using FedGrid.Learning.Randomness;
 
@@ -102,6 +103,11 @@ public sealed record FederatedRunResult(TrainingRun Run, string Scheme, int Roun
 /// gateway no longer controls its flexible load: the world runs it at the desired power (no curtailment) until the
 /// household rejoins at a later round's start.
 /// </para>
+/// <para>
+/// Warm start (<see cref="FederationOptions.WarmStartSteps"/>): on those steps each simulated gateway runs the price rule
+/// of the centralized warm start (<see cref="PriceThresholdPolicy"/> with <see cref="TrainingDefaults.RuleThreshold"/>) on
+/// its own readings and the public prices and hands its setpoint to its household machine as the step's demonstration.
+/// </para>
 /// </summary>
 public sealed class InProcessFederation : ICoordinatorOutbox
 {
@@ -118,6 +124,8 @@ public sealed class InProcessFederation : ICoordinatorOutbox
     private readonly HouseholdMessage?[] _replies;
     private readonly LearningRandom _dropout, _stepDropout;
     private readonly bool[] _offline;
+    private readonly PriceThresholdPolicy _rule;
+    private readonly double[] _demonstrations;
     private readonly DropoutPoint?[] _dropAt;
     private int _online;
     private GroundTruthWriter? _truth;
@@ -177,6 +185,9 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         _dropout = new LearningRandom(LearningRandom.DeriveSeed(fed.Learning.Seed, 0xD809UL));
         _stepDropout = new LearningRandom(LearningRandom.DeriveSeed(fed.Learning.Seed, 0x57E9D809UL));
         _offline = new bool[n];
+        _demonstrations = new double[n];
+        _rule = new PriceThresholdPolicy(TrainingDefaults.RuleThreshold(scenario.Tariff, _task.Environment.SlotCount),
+            PriceThresholdPolicy.DefaultReleaseSpreadSlots);
         _dropAt = new DropoutPoint?[n];
         _online = n;
         if (!(options.StepDropout >= 0 && options.StepDropout < 1))
@@ -316,6 +327,13 @@ public sealed class InProcessFederation : ICoordinatorOutbox
         {
             PlanDropouts(step);
         }
+        bool warm = step < fed.WarmStartSteps;
+        if (warm)
+        {
+            // Each gateway runs the demonstrator rule on its own readings and the public prices (household m's entry
+            // depends on nothing but those and its own index); the runner evaluates all of them in one call.
+            _rule.Decide(_task.Environment, _demonstrations);
+        }
         for (int m = 0; m < n; m++)
         {
             if (_offline[m])
@@ -327,7 +345,8 @@ public sealed class InProcessFederation : ICoordinatorOutbox
                 GoOffline(m);
                 continue;
             }
-            Deliver(_agents[m].BeginStep(step, _state.AsSpan(m * features, features), min[m], des[m], baseKw[m]));
+            double? demonstration = warm ? _demonstrations[m] : null;
+            Deliver(_agents[m].BeginStep(step, _state.AsSpan(m * features, features), min[m], des[m], baseKw[m], demonstration));
         }
         Drain();
         while (Coordinator.StepOpen)

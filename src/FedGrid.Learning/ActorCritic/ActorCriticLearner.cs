@@ -327,6 +327,26 @@ public sealed class ActorCriticLearner
     }
 
     /// <summary>
+    /// The warm start's target for one demonstrated action: the pre-squash value u* = atanh(2(a − lo)/(hi − lo) − 1), |u*|
+    /// capped at <paramref name="edge"/> (an action on its bound has no finite u*); 0 and inactive for an empty box
+    /// (width ≤ 1e-6). Shared by <see cref="WarmStart"/> and the federated households' local warm start.
+    /// </summary>
+    /// <param name="action">The demonstrated action.</param>
+    /// <param name="lower">Lower bound of its box.</param>
+    /// <param name="upper">Upper bound of its box.</param>
+    /// <param name="edge">Largest |u*| (&gt; 0).</param>
+    /// <param name="active">Whether the box is wide enough for the target to mean anything.</param>
+    /// <returns>u*.</returns>
+    public static float CloneTarget(float action, float lower, float upper, float edge, out bool active)
+    {
+        float width = upper - lower;
+        active = width > 1e-6f;
+        float limit = MathF.Tanh(edge);
+        float y = active ? Math.Clamp(2f * (action - lower) / width - 1f, -limit, limit) : 0f;
+        return MathF.Atanh(y);
+    }
+
+    /// <summary>
     /// Warm start from a demonstrator's transitions (behaviour cloning for the actor, policy evaluation for the
     /// critic), e.g. a rule that ran the first day: <paramref name="epochs"/> passes over the rows in a seeded shuffled
     /// order, in minibatches of <paramref name="batchSize"/> rows, one Adam step of each network per minibatch, then both
@@ -375,15 +395,11 @@ public sealed class ActorCriticLearner
         ArgumentOutOfRangeException.ThrowIfNegativeOrZero(learningRate);
         _actorOptimiser.LearningRate = learningRate;
         _criticOptimiser.LearningRate = learningRate;
-        float limit = MathF.Tanh(edge);
         var targetU = new float[rows * a];
         var active = new bool[rows * a];
         for (int i = 0; i < targetU.Length; i++)
         {
-            float width = upper[i] - lower[i];
-            active[i] = width > 1e-6f;
-            float y = active[i] ? Math.Clamp(2f * (actions[i] - lower[i]) / width - 1f, -limit, limit) : 0f;
-            targetU[i] = MathF.Atanh(y);
+            targetU[i] = CloneTarget(actions[i], lower[i], upper[i], edge, out active[i]);
         }
         var targets = new float[rows * m];
         var order = new int[rows];
