@@ -193,6 +193,60 @@ public sealed class HouseholdHost
         });
         var client = new FederationHost.FederationHostClient(channel);
         using AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call = client.Session(cancellationToken: cancel);
+        try
+        {
+            await ConverseAsync(call, cancel);
+        }
+        catch (Exception e) when (e is not RpcException { StatusCode: StatusCode.Aborted } && !cancel.IsCancellationRequested)
+        {
+            // A write or read failed: when the call ended with the drop notice (e.g. the household wrote after a stall,
+            // into a call the coordinator had ended), report the notice rather than the transport error.
+            if ((DroppedStatus(call) ?? await DrainForDropNoticeAsync(call)) is { } dropped)
+            {
+                throw dropped;
+            }
+            throw;
+        }
+    }
+
+    /// <summary>Reads the rest of the call (a few seconds at most) for its status; the drop notice, or null.</summary>
+    private static async Task<RpcException?> DrainForDropNoticeAsync(AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call)
+    {
+        using var limit = new CancellationTokenSource(TimeSpan.FromSeconds(5));
+        try
+        {
+            while (await call.ResponseStream.MoveNext(limit.Token))
+            {
+            }
+        }
+        catch (RpcException r) when (DropNotice(r) is not null)
+        {
+            return r;
+        }
+        catch (Exception)
+        {
+            // any other end: not a drop notice
+        }
+        return DroppedStatus(call);
+    }
+
+    /// <summary>The call's drop notice as an exception, when the call has ended with one; else null.</summary>
+    private static RpcException? DroppedStatus(AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call)
+    {
+        try
+        {
+            Status status = call.GetStatus();
+            var notice = new RpcException(status, call.GetTrailers());
+            return DropNotice(notice) is null ? null : notice;
+        }
+        catch (InvalidOperationException)
+        {
+            return null; // not ended yet
+        }
+    }
+
+    private async Task ConverseAsync(AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call, CancellationToken cancel)
+    {
         IClientStreamWriter<HouseholdMessage> send = call.RequestStream;
         bool dropped = _dropped;
         if (dropped)

@@ -136,6 +136,71 @@ public sealed class StepDropoutRejoinTests
     }
 
     [Fact]
+    public async Task ARealHouseholdProcessStoppedPastAStepDeadlineAndContinuedRejoinsAndTheModelEqualsTheInProcessRunWithTheSameDropout()
+    {
+        // Real OS processes: household H02's process is frozen (SIGSTOP) mid-round 1 until the coordinator has dropped it
+        // at the step deadline, then continued (SIGCONT): it reads the drop notice and rejoins with the state it kept.
+        string dir = Directory.CreateTempSubdirectory("fedgrid-sigstop-").FullName;
+        string result = Path.Combine(dir, "result.json"), transcript = Path.Combine(dir, "run.fgt");
+        int port = Launcher.FreeLoopbackPort();
+        string address = $"http://127.0.0.1:{port}";
+        var all = new List<HostProcess>();
+        try
+        {
+            var coordinator = HostProcess.Start("coordinator", ["coordinator", .. Small.ToArguments(), "--port", port.ToString(System.Globalization.CultureInfo.InvariantCulture),
+                "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "10", "--round-timeout", "60"]);
+            all.Add(coordinator);
+            await coordinator.WaitForLine("listening on", TimeSpan.FromSeconds(60));
+            List<HostProcess> households = [.. Small.CreateScenario().Households.Select(h => HostProcess.Start(h.Id,
+                ["household", .. Small.ToArguments(), "--id", h.Id, "--coordinator", address, "--insecure-loopback"]))];
+            all.AddRange(households);
+            using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(address);
+            var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
+            var watch = System.Diagnostics.Stopwatch.StartNew();
+            while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < 30)
+            {
+                Assert.True(watch.Elapsed < TimeSpan.FromMinutes(3) && !coordinator.HasExited, coordinator.Output());
+                await Task.Delay(20);
+            }
+            households[1].Signal("STOP");
+            await coordinator.WaitForLine("was dropped from round", TimeSpan.FromMinutes(2));
+            households[1].Signal("CONT");
+
+            Assert.True(await coordinator.WaitForExit(TimeSpan.FromMinutes(4)) == 0, string.Join("\n", all.Select(p => p.Output())));
+            foreach (HostProcess h in households)
+            {
+                Assert.True(await h.WaitForExit(TimeSpan.FromMinutes(1)) == 0, h.Output());
+                Assert.True(h.Logged("finished after 96 steps"), h.Output());
+            }
+            Assert.True(households[1].Logged("after a step dropout"), households[1].Output());
+            CoordinatorOutcome outcome = Launcher.ReadOutcome(result);
+            Assert.True(outcome.Ok, outcome.Error);
+            Assert.Equal(96, outcome.Steps);
+
+            using TranscriptReader reader = TranscriptReader.Open(transcript);
+            var records = reader.Records().ToList();
+            TranscriptRecord drop = Assert.Single(records, r => r.Event?.Kind == EventKind.StepDropout);
+            Assert.Equal([1], drop.Event.Households);
+            TranscriptRecord rejoined = Assert.Single(records, r => r.Event?.Kind == EventKind.Rejoined);
+            Assert.Equal([1], rejoined.Event.Households);
+            Assert.Equal(drop.Round + 1, rejoined.Round); // at the next round start, as in one process
+            // Where the freeze caught it (the transcript says which phase's deadline it missed) gives the in-process script.
+            DropoutPoint point = drop.Event.Detail.Contains("projection inputs", StringComparison.Ordinal) ? DropoutPoint.BeforeProjectionInputs : DropoutPoint.BeforePartialSums;
+            string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with { ScriptedDropouts = [new ScriptedDropout(1, drop.Step, point)] }).ModelSha256);
+            Assert.True(inProcess == outcome.ModelSha256, $"dropped at step {drop.Step} ({point}): hosted {outcome.ModelSha256}, in process {inProcess}");
+        }
+        finally
+        {
+            foreach (HostProcess p in all)
+            {
+                if (!p.HasExited) { try { p.Signal("CONT"); } catch (InvalidOperationException) { } }
+                p.Dispose();
+            }
+            Directory.Delete(dir, recursive: true);
+        }
+    }
+
+    [Fact]
     public void ASnapshotAfterAStepDropoutRestoresWhoWasDroppedAndAVersion1SnapshotIsRefusedNamingTheFile()
     {
         var scenario = Small.CreateScenario();
