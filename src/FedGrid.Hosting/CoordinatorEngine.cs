@@ -100,6 +100,8 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     private readonly bool[] _selected;
     /// <summary>Households dropped at a step deadline whose rejoin the next round start waits for (up to the step deadline).</summary>
     private readonly bool[] _awaitRejoin;
+    /// <summary>Members without a session inside their --rejoin-timeout window (the round start waits for them, not the step deadline).</summary>
+    private readonly bool[] _reconnecting;
     /// <summary>Rejoin requests of dropped households that arrived mid-round, delivered at the next round start.</summary>
     private readonly HouseholdMessage?[] _rejoinHeld;
     private readonly Dictionary<string, int> _roster = new(StringComparer.Ordinal);
@@ -200,6 +202,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         _pending = new HouseholdMessage?[_n];
         _selected = new bool[_n];
         _awaitRejoin = new bool[_n];
+        _reconnecting = new bool[_n];
         _rejoinHeld = new HouseholdMessage?[_n];
         if (snapshot is not null)
         {
@@ -217,6 +220,8 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 // The first round start after a restart waits (up to the step deadline) for the households that were
                 // dropped when the checkpoint was written, as the round start after their dropout did.
                 _awaitRejoin[m] = _coordinator.IsDropped(m);
+                // Every member has --rejoin-timeout to reconnect to the restarted coordinator.
+                _reconnecting[m] = !_coordinator.IsDropped(m);
             }
             _checkpointRound = _coordinator.Round;
             _watch.Start();
@@ -307,6 +312,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             bool rejoin = _coordinator.Phase != CoordinatorPhase.Admitting;
             var s = new HouseholdSession(m, join.HouseholdId, rejoin);
             _sessions[m] = s;
+            _reconnecting[m] = false;
             _connected++;
             return s;
         }
@@ -347,6 +353,15 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     /// <param name="cancel">Stops the loop.</param>
     public async Task RunAsync(CancellationToken cancel)
     {
+        for (int m = 0; m < _n; m++)
+        {
+            if (_reconnecting[m])
+            {
+                var absent = new HouseholdSession(m, _scenario.Households[m].Id); // resumed: the member has not reconnected yet
+                int h = m;
+                _ = Task.Delay(_options.RejoinTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(absent, null, false, -1, h)), TaskScheduler.Default);
+            }
+        }
         try
         {
             await foreach (Inbound item in _inbox.Reader.ReadAllAsync(cancel))
@@ -523,12 +538,12 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         }
     }
 
-    /// <summary>Whether a household that is not dropped has no session (it lost its connection and may rejoin).</summary>
+    /// <summary>Whether a member (not dropped) lost its connection and is inside its --rejoin-timeout window to reconnect.</summary>
     private bool MemberReconnecting()
     {
         for (int h = 0; h < _n; h++)
         {
-            if (_sessions[h] is null && !_coordinator.IsDropped(h))
+            if (_reconnecting[h] && _sessions[h] is null && !_coordinator.IsDropped(h))
             {
                 return true;
             }
@@ -816,6 +831,10 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             }
             _log.LogWarning("household {Index} ('{Id}') lost its connection in round {Round} ({Phase}); waiting up to {Seconds:0} s for it to rejoin at a round start",
                 m, session.Id, _coordinator.Round, _coordinator.Phase, _options.RejoinTimeout.TotalSeconds);
+            lock (_gate)
+            {
+                _reconnecting[m] = _sessions[m] is null;
+            }
             _ = Task.Delay(_options.RejoinTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(session, null, false, -1, m)), TaskScheduler.Default);
             return;
         }
@@ -833,9 +852,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     {
         lock (_gate)
         {
-            if (_finished || _sessions[m] is not null)
+            if (_finished || _sessions[m] is not null || _coordinator.IsDropped(m))
             {
-                return;
+                return; // back, or dropped at a step deadline meanwhile (it may rejoin at a round start)
             }
         }
         _log.LogError("household {Index} ('{Id}') did not rejoin within {Seconds:0} s", m, lost.Id, _options.RejoinTimeout.TotalSeconds);

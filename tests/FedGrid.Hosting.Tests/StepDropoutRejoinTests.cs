@@ -1,3 +1,4 @@
+using Xunit.Abstractions;
 using FedGrid.Federation.Coordination;
 using FedGrid.Federation.Runs;
 using FedGrid.Federation.Transcripts;
@@ -12,7 +13,7 @@ namespace FedGrid.Hosting.Tests;
 /// state it kept (as the in-process runner's offline households do), and the coordinator's checkpoint keeps who was
 /// dropped (and the last reports the projection stands them in with) across a restart.
 /// </summary>
-public sealed class StepDropoutRejoinTests
+public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
 {
     private static readonly HostedRunSettings Small = HostedRunTests.Small; // 3 households, 1 day, 4 rounds of 24 steps
 
@@ -187,6 +188,7 @@ public sealed class StepDropoutRejoinTests
             // Where the freeze caught it (the transcript says which phase's deadline it missed) gives the in-process script.
             DropoutPoint point = drop.Event.Detail.Contains("projection inputs", StringComparison.Ordinal) ? DropoutPoint.BeforeProjectionInputs : DropoutPoint.BeforePartialSums;
             string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with { ScriptedDropouts = [new ScriptedDropout(1, drop.Step, point)] }).ModelSha256);
+            output.WriteLine($"SIGSTOP caught H02 at step {drop.Step} ({point}); rejoined in round {rejoined.Round}; model {outcome.ModelSha256}");
             Assert.True(inProcess == outcome.ModelSha256, $"dropped at step {drop.Step} ({point}): hosted {outcome.ModelSha256}, in process {inProcess}");
         }
         finally
