@@ -203,6 +203,40 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public async Task ARejoinSessionIsAuthenticatedLikeAJoin()
+    {
+        string dir = Directory.CreateTempSubdirectory("fedgrid-rejoin-tls-").FullName;
+        try
+        {
+            ScenarioCertificates.Create(dir, ["H01", "H02", "H03"]);
+            await using var c = await TestCoordinator.StartAsync(Small, tls: dir);
+            async Task<Grpc.Core.StatusCode> Rejoin(string certificateOf, int index)
+            {
+                using var handler = new SocketsHttpHandler();
+                handler.SslOptions = new System.Net.Security.SslClientAuthenticationOptions
+                {
+                    ClientCertificates = [ScenarioCertificates.Load(ScenarioCertificates.HouseholdFile(dir, certificateOf))],
+                    RemoteCertificateValidationCallback = ScenarioCertificates.ServerValidator(ScenarioCertificates.LoadCa(dir)),
+                };
+                using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(c.Address, new Grpc.Net.Client.GrpcChannelOptions { HttpHandler = handler });
+                using var call = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel).Session();
+                await call.RequestStream.WriteAsync(new HouseholdMessage { HouseholdIndex = index, Rejoin = new RejoinRequest { LastRound = 0 } });
+                var e = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () => await call.ResponseStream.MoveNext(CancellationToken.None));
+                return e.StatusCode;
+            }
+            // H01's certificate asking to rejoin as household index 1 (H02): an impersonation.
+            Assert.Equal(Grpc.Core.StatusCode.PermissionDenied, await Rejoin("H01", 1));
+            Assert.True(c.Logged("the client certificate names household 'H01'; the rejoin request claims 'H02'"), string.Join("\n", c.Lines));
+            Assert.Equal(Grpc.Core.StatusCode.NotFound, await Rejoin("H01", 7));
+            Assert.False(c.Run.IsCompleted); // still admitting: the refusals left the run alone
+        }
+        finally
+        {
+            Directory.Delete(dir, recursive: true);
+        }
+    }
+
+    [Fact]
     public void ASnapshotAfterAStepDropoutRestoresWhoWasDroppedAndAVersion1SnapshotIsRefusedNamingTheFile()
     {
         var scenario = Small.CreateScenario();
