@@ -123,8 +123,6 @@ public sealed class HouseholdHost
                 await RunOnceAsync(address, cancel, tlsFolder);
                 return;
             }
-            // Before the first admission only UNAVAILABLE is retried, 10 times (the coordinator not up yet, a handshake
-            // lost on a busy machine); a household that was admitted keeps reconnecting within the window.
             catch (RpcException e) when (!cancel.IsCancellationRequested && DropNotice(e) is { } notice)
             {
                 // Dropped at a step deadline (e.g. the gateway stalled): it keeps its agent and world and comes back with a
@@ -138,6 +136,8 @@ public sealed class HouseholdHost
                 sinceProgress.Restart();
                 attempt = 0;
             }
+            // Before the first admission only UNAVAILABLE is retried, 10 times (the coordinator not up yet, a handshake
+            // lost on a busy machine); a household that was admitted keeps reconnecting within the window.
             catch (Exception e) when (Retryable(e, cancel, _everAdmitted) && (_everAdmitted || attempt < 10))
             {
                 if (_step != progressMark)
