@@ -60,6 +60,9 @@ internal sealed class HouseholdSession(int index, string id, bool rejoin = false
 
     /// <summary>Set when the coordinator ends this session with an error status.</summary>
     public TaskCompletionSource<Status> Fault { get; } = new(TaskCreationOptions.RunContinuationsAsynchronously);
+
+    /// <summary>Trailers sent with <see cref="Fault"/> (the drop notice), or null.</summary>
+    public Metadata? FaultTrailers { get; set; }
 }
 
 /// <summary>
@@ -78,6 +81,12 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     /// <summary>File name of the coordinator's checkpoint in its run folder.</summary>
     public const string CheckpointFileName = "coordinator.ckpt";
 
+    /// <summary>
+    /// Trailer of the ABORTED status that ends the session of a household dropped at a step deadline (value
+    /// "ROUND,STEP"): the household keeps its state and comes back with a <see cref="RejoinRequest"/> session.
+    /// </summary>
+    public const string DroppedTrailer = "fedgrid-dropped";
+
     private const string CheckpointKind = "coordinator";
 
     private readonly ILogger _log;
@@ -89,6 +98,12 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     private readonly HouseholdSession?[] _sessions;
     private readonly HouseholdMessage?[] _pending;
     private readonly bool[] _selected;
+    /// <summary>Households dropped at a step deadline whose rejoin the next round start waits for (up to the step deadline).</summary>
+    private readonly bool[] _awaitRejoin;
+    /// <summary>Members without a session inside their --rejoin-timeout window (the round start waits for them, not the step deadline).</summary>
+    private readonly bool[] _reconnecting;
+    /// <summary>Rejoin requests of dropped households that arrived mid-round, delivered at the next round start.</summary>
+    private readonly HouseholdMessage?[] _rejoinHeld;
     private readonly Dictionary<string, int> _roster = new(StringComparer.Ordinal);
     private readonly TaskCompletionSource<CoordinatorOutcome> _done = new(TaskCreationOptions.RunContinuationsAsynchronously);
     private readonly Stopwatch _watch = new();
@@ -186,13 +201,32 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         _sessions = new HouseholdSession?[_n];
         _pending = new HouseholdMessage?[_n];
         _selected = new bool[_n];
+        _awaitRejoin = new bool[_n];
+        _reconnecting = new bool[_n];
+        _rejoinHeld = new HouseholdMessage?[_n];
         if (snapshot is not null)
         {
             using var reader = new BinaryReader(new MemoryStream(snapshot));
-            _coordinator.RestoreSnapshot(reader);
+            try
+            {
+                _coordinator.RestoreSnapshot(reader);
+            }
+            catch (InvalidDataException e)
+            {
+                throw new InvalidDataException($"{_checkpoint}: {e.Message}", e);
+            }
+            for (int m = 0; m < _n; m++)
+            {
+                // The first round start after a restart waits (up to the step deadline) for the households that were
+                // dropped when the checkpoint was written, as the round start after their dropout did.
+                _awaitRejoin[m] = _coordinator.IsDropped(m);
+                // Every member has --rejoin-timeout to reconnect to the restarted coordinator.
+                _reconnecting[m] = !_coordinator.IsDropped(m);
+            }
             _checkpointRound = _coordinator.Round;
             _watch.Start();
-            _log.LogInformation("resumed from {Checkpoint}: round {Round}, step {Step}; waiting for the households to rejoin", _checkpoint, _coordinator.Round, _coordinator.Step + 1);
+            _log.LogInformation("resumed from {Checkpoint}: round {Round}, step {Step}, {Dropped} households dropped at a step deadline; waiting for the households to rejoin",
+                _checkpoint, _coordinator.Round, _coordinator.Step + 1, DroppedCount());
         }
     }
 
@@ -278,6 +312,32 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             bool rejoin = _coordinator.Phase != CoordinatorPhase.Admitting;
             var s = new HouseholdSession(m, join.HouseholdId, rejoin);
             _sessions[m] = s;
+            _reconnecting[m] = false;
+            _connected++;
+            return s;
+        }
+    }
+
+    /// <summary>The roster id at household index m, or null when m is not on the roster.</summary>
+    internal string? RosterId(int m) => m >= 0 && m < _n ? _scenario.Households[m].Id : null;
+
+    /// <summary>Opens a session for a rejoin request of a household dropped at a step deadline (index checked by the caller; the rejoin itself goes through the queue).</summary>
+    internal HouseholdSession OpenDropped(int m)
+    {
+        string id = _scenario.Households[m].Id;
+        lock (_gate)
+        {
+            if (_finished)
+            {
+                throw new RpcException(new Status(StatusCode.FailedPrecondition, $"the run is over; household '{id}' cannot rejoin"));
+            }
+            if (_sessions[m] is not null)
+            {
+                _log.LogWarning("rejected rejoin: household '{Id}' already has a session", id);
+                throw new RpcException(new Status(StatusCode.AlreadyExists, $"household '{id}' already has a session"));
+            }
+            var s = new HouseholdSession(m, id, rejoin: true);
+            _sessions[m] = s;
             _connected++;
             return s;
         }
@@ -293,6 +353,15 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     /// <param name="cancel">Stops the loop.</param>
     public async Task RunAsync(CancellationToken cancel)
     {
+        for (int m = 0; m < _n; m++)
+        {
+            if (_reconnecting[m])
+            {
+                var absent = new HouseholdSession(m, _scenario.Households[m].Id); // resumed: the member has not reconnected yet
+                int h = m;
+                _ = Task.Delay(_options.RejoinTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(absent, null, false, -1, h)), TaskScheduler.Default);
+            }
+        }
         try
         {
             await foreach (Inbound item in _inbox.Reader.ReadAllAsync(cancel))
@@ -354,6 +423,11 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             return;
         }
         int m = session.Index;
+        if (message.BodyCase == HouseholdMessage.BodyOneofCase.Rejoin)
+        {
+            OnDroppedRejoin(session, message);
+            return;
+        }
         if (session.Rejoin && message.BodyCase == HouseholdMessage.BodyOneofCase.Join)
         {
             OnRejoin(session, message);
@@ -373,7 +447,8 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         {
             CoordinatorPhase.CollectingUploads => _expectedUploads,
             CoordinatorPhase.Admitting => _n,
-            _ => _n - DroppedCount(),
+            // At a round start the first step also waits for the households dropped in the round before (their rejoin).
+            _ => _n - DroppedCount() + (_coordinator.AtRoundStart ? AwaitedRejoins() : 0),
         };
         if (_pendingCount == 1 && _keyStage == KeyStage.None && phase is CoordinatorPhase.CollectingPartialSums or CoordinatorPhase.CollectingProjectionInputs)
         {
@@ -383,6 +458,17 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         {
             DeliverPending();
         }
+    }
+
+    /// <summary>Dropped households the current round start still waits for.</summary>
+    private int AwaitedRejoins()
+    {
+        int a = 0;
+        for (int h = 0; h < _n; h++)
+        {
+            a += _awaitRejoin[h] && _coordinator.IsDropped(h) ? 1 : 0;
+        }
+        return a;
     }
 
     private int DroppedCount()
@@ -417,13 +503,31 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         {
             return;
         }
+        if (_coordinator.AtRoundStart && MemberReconnecting())
+        {
+            // A member whose connection broke is waited for under --rejoin-timeout, not dropped by the step deadline.
+            ArmStepDeadline(step, phase);
+            return;
+        }
         _log.LogWarning("step {Step}: deadline passed in {Phase} with {Arrived} of {Expected} households", step, phase, _pendingCount, _n - DroppedCount());
         DeliverPending();
         if (!_finished && _coordinator.StepOpen && _coordinator.Phase == phase)
         {
+            bool[] before = new bool[_n];
             lock (_gate)
             {
+                for (int h = 0; h < _n; h++)
+                {
+                    before[h] = _coordinator.IsDropped(h);
+                }
                 _coordinator.CloseStep(this); // the next phase's replies arrive through the queue and get their own deadline
+            }
+            for (int h = 0; h < _n; h++)
+            {
+                if (!before[h] && _coordinator.IsDropped(h))
+                {
+                    NoticeDropped(h);
+                }
             }
             if (_coordinator.Phase == CoordinatorPhase.CollectingRecoveryShares)
             {
@@ -431,6 +535,111 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 ArmStepDeadline(_coordinator.Step, CoordinatorPhase.CollectingRecoveryShares);
             }
             AfterDelivery();
+        }
+    }
+
+    /// <summary>Whether a member (not dropped) lost its connection and is inside its --rejoin-timeout window to reconnect.</summary>
+    private bool MemberReconnecting()
+    {
+        for (int h = 0; h < _n; h++)
+        {
+            if (_reconnecting[h] && _sessions[h] is null && !_coordinator.IsDropped(h))
+            {
+                return true;
+            }
+        }
+        return false;
+    }
+
+    /// <summary>
+    /// Household m was dropped at a step deadline: the next round start waits for its rejoin, and its session (if still
+    /// open: a gateway that stalled rather than left) ends with ABORTED and the <see cref="DroppedTrailer"/> trailer, so
+    /// that the household knows to come back with a rejoin request; it is sent nothing more until then.
+    /// </summary>
+    private void NoticeDropped(int m)
+    {
+        _awaitRejoin[m] = true;
+        if (_sessions[m] is { } s)
+        {
+            s.FaultTrailers = new Metadata { { DroppedTrailer, FormattableString.Invariant($"{_coordinator.Round},{_coordinator.Step}") } };
+            Reject(s, StatusCode.Aborted, $"household '{s.Id}' was dropped from round {_coordinator.Round} at the deadline of step {_coordinator.Step}; " +
+                "it may rejoin at a round start with a rejoin request");
+        }
+    }
+
+    /// <summary>A rejoin request of a household dropped at a step deadline: taken at a round start (now, or held until the next one).</summary>
+    private void OnDroppedRejoin(HouseholdSession session, HouseholdMessage message)
+    {
+        int m = session.Index;
+        if (_coordinator.Phase == CoordinatorPhase.Admitting || !_coordinator.IsDropped(m))
+        {
+            Reject(session, StatusCode.FailedPrecondition, $"household '{session.Id}' asks to rejoin but was not dropped at a step deadline");
+            return;
+        }
+        if (_coordinator.SchemeMessages)
+        {
+            Reject(session, StatusCode.FailedPrecondition, $"household '{session.Id}' cannot rejoin a {_options.Run.Scheme} run over the hosts (its fresh keys would need a key agreement mid-run, which the hosts do not hold)");
+            return;
+        }
+        if (_rejoinHeld[m] is not null)
+        {
+            Reject(session, StatusCode.FailedPrecondition, $"household '{session.Id}' sent a second rejoin request");
+            return;
+        }
+        Interlocked.Add(ref _wireBytes, message.CalculateSize());
+        if (_coordinator.AtRoundStart)
+        {
+            DeliverRejoin(m, message);
+            SettleRoundStart();
+            return;
+        }
+        _rejoinHeld[m] = message;
+        _log.LogInformation("household {Index} ('{Id}') asks to rejoin during round {Round}; held until the next round start", m, session.Id, _coordinator.Round);
+    }
+
+    private void DeliverRejoin(int m, HouseholdMessage message)
+    {
+        try
+        {
+            lock (_gate)
+            {
+                _coordinator.Receive(message, this);
+            }
+        }
+        catch (ProtocolException e)
+        {
+            if (_sessions[m] is { } s)
+            {
+                Reject(s, StatusCode.FailedPrecondition, e.Message);
+            }
+            return;
+        }
+        _awaitRejoin[m] = false;
+        _log.LogInformation("household {Index} ('{Id}') rejoined at the start of round {Round} after a step dropout", m, _scenario.Households[m].Id, _coordinator.Round);
+    }
+
+    /// <summary>At a round start: the held rejoins go in (household order), then the checkpoint once no rejoin is awaited.</summary>
+    private void SettleRoundStart()
+    {
+        if (!_coordinator.AtRoundStart)
+        {
+            return;
+        }
+        for (int h = 0; h < _n; h++)
+        {
+            if (_rejoinHeld[h] is { } held)
+            {
+                _rejoinHeld[h] = null;
+                DeliverRejoin(h, held);
+            }
+        }
+        bool last = _coordinator.Step == _totalSteps - 1;
+        if (_checkpoint is not null && !last && _coordinator.Round > _checkpointRound && AwaitedRejoins() == 0)
+        {
+            lock (_gate)
+            {
+                WriteCheckpoint();
+            }
         }
     }
 
@@ -486,6 +695,17 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         _pendingCount = 0;
         CoordinatorPhase before = _coordinator.Phase;
         bool admitting = before == CoordinatorPhase.Admitting;
+        if (_coordinator.AtRoundStart && AwaitedRejoins() > 0)
+        {
+            // The round's first partial sums go in: the dropped households not back yet rejoin at a later round start.
+            _log.LogWarning("round {Round} starts without {Count} households dropped before; they may rejoin at a later round start", _coordinator.Round, AwaitedRejoins());
+            Array.Clear(_awaitRejoin);
+            SettleRoundStart();
+        }
+        else if (_coordinator.AtRoundStart)
+        {
+            Array.Clear(_awaitRejoin);
+        }
         lock (_gate)
         {
             foreach (HouseholdMessage p in batch)
@@ -498,7 +718,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             }
             _keyStage = _keyStage switch
             {
-                KeyStage.None when admitting && _options.Run.MaskedSums => KeyStage.PublicKeys,
+                KeyStage.None when admitting && _coordinator.SchemeMessages => KeyStage.PublicKeys,
                 KeyStage.PublicKeys => KeyStage.KeyShares,
                 _ => KeyStage.None,
             };
@@ -520,14 +740,8 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
                 _coordinator.CloseRound(this);
             }
         }
+        SettleRoundStart();
         bool last = _coordinator.Step == _totalSteps - 1;
-        if (_checkpoint is not null && !last && _coordinator.AtRoundStart && _coordinator.Round > _checkpointRound)
-        {
-            lock (_gate)
-            {
-                WriteCheckpoint();
-            }
-        }
         if (last && _coordinator.Phase == CoordinatorPhase.CollectingPartialSums)
         {
             lock (_gate)
@@ -581,7 +795,16 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             return;
         }
         int m = session.Index;
-        if (_options.Run.MaskedSums && _coordinator.Phase != CoordinatorPhase.Admitting)
+        if (_rejoinHeld[m] is not null)
+        {
+            _rejoinHeld[m] = null; // its rejoin went with the session
+        }
+        if (_coordinator.Phase != CoordinatorPhase.Admitting && _coordinator.IsDropped(m))
+        {
+            _log.LogInformation("household {Index} ('{Id}'), dropped at a step deadline, has no session now; it may rejoin at a round start", m, session.Id);
+            return;
+        }
+        if (_coordinator.SchemeMessages && _coordinator.Phase != CoordinatorPhase.Admitting)
         {
             // Its private keys and the shares it held went with its session: it cannot come back over the hosts. With a
             // step deadline the coordinator drops it and recovers the steps' sums from the survivors' shares.
@@ -608,6 +831,10 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             }
             _log.LogWarning("household {Index} ('{Id}') lost its connection in round {Round} ({Phase}); waiting up to {Seconds:0} s for it to rejoin at a round start",
                 m, session.Id, _coordinator.Round, _coordinator.Phase, _options.RejoinTimeout.TotalSeconds);
+            lock (_gate)
+            {
+                _reconnecting[m] = _sessions[m] is null;
+            }
             _ = Task.Delay(_options.RejoinTimeout).ContinueWith(_ => _inbox.Writer.TryWrite(new Inbound(session, null, false, -1, m)), TaskScheduler.Default);
             return;
         }
@@ -625,9 +852,9 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
     {
         lock (_gate)
         {
-            if (_finished || _sessions[m] is not null)
+            if (_finished || _sessions[m] is not null || _coordinator.IsDropped(m))
             {
-                return;
+                return; // back, or dropped at a step deadline meanwhile (it may rejoin at a round start)
             }
         }
         _log.LogError("household {Index} ('{Id}') did not rejoin within {Seconds:0} s", m, lost.Id, _options.RejoinTimeout.TotalSeconds);
@@ -636,9 +863,15 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
 
     private void OnRejoin(HouseholdSession session, HouseholdMessage join)
     {
-        if (_options.Run.MaskedSums)
+        if (_coordinator.SchemeMessages)
         {
             Reject(session, StatusCode.FailedPrecondition, $"household '{session.Id}' cannot rejoin a {_options.Run.Scheme} run over the hosts (its keys and the shares it held are gone)");
+            return;
+        }
+        if (_coordinator.IsDropped(session.Index))
+        {
+            Reject(session, StatusCode.FailedPrecondition, $"household '{session.Id}' was dropped at a step deadline and joins afresh; a dropped household comes back " +
+                "with a rejoin request from the state it kept (a restarted household cannot rejoin a run that dropped it)");
             return;
         }
         if (!_coordinator.AtRoundStart)
@@ -694,14 +927,15 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         {
             foreach (HouseholdSession? s in _sessions)
             {
-                if (s is not null)
+                // A household dropped at a step deadline is sent nothing until it rejoins (as the in-process runner's offline households).
+                if (s is not null && !_coordinator.IsDropped(s.Index))
                 {
                     Interlocked.Add(ref _wireBytes, size);
                     s.Outgoing.Writer.TryWrite(copy);
                 }
             }
         }
-        else if (_sessions[copy.HouseholdIndex] is { } s)
+        else if (_sessions[copy.HouseholdIndex] is { } s && !_coordinator.IsDropped(copy.HouseholdIndex))
         {
             Interlocked.Add(ref _wireBytes, size);
             s.Outgoing.Writer.TryWrite(copy);

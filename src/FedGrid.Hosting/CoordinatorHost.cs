@@ -48,20 +48,26 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
         {
             throw Log(e);
         }
-        if (first.BodyCase != HouseholdMessage.BodyOneofCase.Join)
+        // A session starts with a join request, or (a household dropped at a step deadline that kept its state) a rejoin
+        // request under its household index.
+        bool rejoin = first.BodyCase == HouseholdMessage.BodyOneofCase.Rejoin;
+        if (first.BodyCase != HouseholdMessage.BodyOneofCase.Join && !rejoin)
         {
-            throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"a session starts with a join request, not {first.BodyCase}")));
+            throw Log(new RpcException(new Status(StatusCode.FailedPrecondition, $"a session starts with a join request (or a dropped household's rejoin request), not {first.BodyCase}")));
         }
+        string claimed = rejoin
+            ? engine.RosterId(first.HouseholdIndex) ?? throw Log(new RpcException(new Status(StatusCode.NotFound, $"rejoin request for household index {first.HouseholdIndex}, not on the roster")))
+            : first.Join.HouseholdId;
         if (engine.Options.ClientCertificates)
         {
             string? named = ScenarioCertificates.HouseholdId(context.GetHttpContext().Connection.ClientCertificate);
-            if (!string.Equals(named, first.Join.HouseholdId, StringComparison.Ordinal))
+            if (!string.Equals(named, claimed, StringComparison.Ordinal))
             {
                 throw Log(new RpcException(new Status(StatusCode.PermissionDenied,
-                    $"the client certificate names household '{named}'; the join request claims '{first.Join.HouseholdId}'")));
+                    $"the client certificate names household '{named}'; the {(rejoin ? "rejoin" : "join")} request claims '{claimed}'")));
             }
         }
-        HouseholdSession session = engine.Open(first.Join);
+        HouseholdSession session = rejoin ? engine.OpenDropped(first.HouseholdIndex) : engine.Open(first.Join);
         log.LogInformation("household '{Id}' connected as index {Index} from {Peer}", session.Id, session.Index, context.Peer);
         engine.Post(session, first);
         using var stop = CancellationTokenSource.CreateLinkedTokenSource(cancel);
@@ -73,7 +79,7 @@ public sealed class FederationHostService(CoordinatorEngine engine, ILogger<Fede
             if (ended == session.Fault.Task)
             {
                 await StopWriting(stop, writer);
-                throw new RpcException(session.Fault.Task.Result);
+                throw session.FaultTrailers is { } trailers ? new RpcException(session.Fault.Task.Result, trailers) : new RpcException(session.Fault.Task.Result);
             }
             if (ended == reader)
             {

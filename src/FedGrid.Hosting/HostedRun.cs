@@ -61,9 +61,6 @@ public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int
         }
     }
 
-    /// <summary>Whether the run's scheme agrees masked-sums keys after admission (masked-sums, dp-masked-sums).</summary>
-    public bool MaskedSums => Scheme is MaskedSumsScheme.SchemeName or DifferentiallyPrivateScheme.MaskedSchemeName;
-
     /// <summary>The operator's scenario: the default scenario cut to the first <see cref="Households"/> households.</summary>
     /// <returns>The scenario.</returns>
     public Scenario CreateScenario()
@@ -104,10 +101,12 @@ public sealed record HostedRunSettings(ulong Seed, int Days, int Households, int
     };
 
     /// <summary>Runs the same settings in one process (<see cref="InProcessFederation"/>) and returns its model's hash and result.</summary>
+    /// <param name="adjust">Changes the run options first (e.g. scripted dropouts), or null.</param>
     /// <returns>SHA-256 of the final model and the run's result.</returns>
-    public (byte[] ModelSha256, FederatedRunResult Result) RunInProcess()
+    public (byte[] ModelSha256, FederatedRunResult Result) RunInProcess(Func<FederatedRunOptions, FederatedRunOptions>? adjust = null)
     {
-        var runner = new InProcessFederation(CreateScenario(), CreateRunOptions());
+        FederatedRunOptions options = CreateRunOptions();
+        var runner = new InProcessFederation(CreateScenario(), adjust is null ? options : adjust(options));
         FederatedRunResult r = runner.Run();
         return (RunHashes.Model(runner.Coordinator.Actor.Parameters, runner.Coordinator.Critic.Parameters), r);
     }

@@ -43,7 +43,7 @@ public sealed class HouseholdHost
     private HouseholdControlTask _world;
     private JoinAccepted? _accepted;
     private long _step;
-    private bool _everAdmitted;
+    private bool _everAdmitted, _dropped, _stalled;
 
     /// <summary>Derives the household's own data.</summary>
     /// <param name="run">The run.</param>
@@ -82,6 +82,15 @@ public sealed class HouseholdHost
     /// <summary>Rejoins after a lost connection (restores from its checkpoint).</summary>
     public int Rejoins { get; private set; }
 
+    /// <summary>Rejoins after the coordinator dropped the household at a step deadline (it kept its state).</summary>
+    public int DropoutRejoins { get; private set; }
+
+    /// <summary>Fault injection for tests: before this decision step the household sends nothing (a gateway that stalls) until the coordinator drops it at the step deadline; −1 for never.</summary>
+    public long StallBeforeStep { get; init; } = -1;
+
+    /// <summary>Fault injection for tests: after the drop of <see cref="StallBeforeStep"/> the household waits for this task before it rejoins (null: at once).</summary>
+    public Task? StallRelease { get; init; }
+
     private (HouseholdAgent Agent, HouseholdControlTask World) Fresh()
     {
         var world = new HouseholdControlTask(_own, new HouseholdTaskOptions(Project: false));
@@ -114,6 +123,19 @@ public sealed class HouseholdHost
                 await RunOnceAsync(address, cancel, tlsFolder);
                 return;
             }
+            catch (RpcException e) when (!cancel.IsCancellationRequested && DropNotice(e) is { } notice)
+            {
+                // Dropped at a step deadline (e.g. the gateway stalled): it keeps its agent and world and comes back with a
+                // rejoin request; the coordinator takes it at a round start.
+                _dropped = true;
+                _log.LogWarning("household '{Id}': dropped by the coordinator at a step deadline (round,step {Notice}); rejoining at a round start", _id, notice);
+                if (_stalled && StallRelease is { } release)
+                {
+                    await release.WaitAsync(cancel);
+                }
+                sinceProgress.Restart();
+                attempt = 0;
+            }
             // Before the first admission only UNAVAILABLE is retried, 10 times (the coordinator not up yet, a handshake
             // lost on a busy machine); a household that was admitted keeps reconnecting within the window.
             catch (Exception e) when (Retryable(e, cancel, _everAdmitted) && (_everAdmitted || attempt < 10))
@@ -135,6 +157,10 @@ public sealed class HouseholdHost
             }
         }
     }
+
+    /// <summary>The coordinator's drop notice (ABORTED with the <see cref="CoordinatorEngine.DroppedTrailer"/> trailer), or null.</summary>
+    private static string? DropNotice(RpcException e) =>
+        e.StatusCode == StatusCode.Aborted && e.Trailers.Get(CoordinatorEngine.DroppedTrailer) is { } entry ? entry.Value : null;
 
     private static bool Retryable(Exception e, CancellationToken cancel, bool admitted) => !cancel.IsCancellationRequested && e switch
     {
@@ -167,12 +193,75 @@ public sealed class HouseholdHost
         });
         var client = new FederationHost.FederationHostClient(channel);
         using AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call = client.Session(cancellationToken: cancel);
+        try
+        {
+            await ConverseAsync(call, cancel);
+        }
+        catch (Exception e) when (e is not RpcException { StatusCode: StatusCode.Aborted } && !cancel.IsCancellationRequested)
+        {
+            // A write or read failed: when the call ended with the drop notice (e.g. the household wrote after a stall,
+            // into a call the coordinator had ended), report the notice rather than the transport error.
+            if ((DroppedStatus(call) ?? await DrainForDropNoticeAsync(call)) is { } dropped)
+            {
+                throw dropped;
+            }
+            throw;
+        }
+    }
+
+    /// <summary>Reads the rest of the call (a few seconds at most) for its status; the drop notice, or null.</summary>
+    private static async Task<RpcException?> DrainForDropNoticeAsync(AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call)
+    {
+        using var limit = new CancellationTokenSource(TimeSpan.FromSeconds(5));
+        try
+        {
+            while (await call.ResponseStream.MoveNext(limit.Token))
+            {
+            }
+        }
+        catch (RpcException r) when (DropNotice(r) is not null)
+        {
+            return r;
+        }
+        catch (Exception)
+        {
+            // any other end: not a drop notice
+        }
+        return DroppedStatus(call);
+    }
+
+    /// <summary>The call's drop notice as an exception, when the call has ended with one; else null.</summary>
+    private static RpcException? DroppedStatus(AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call)
+    {
+        try
+        {
+            Status status = call.GetStatus();
+            var notice = new RpcException(status, call.GetTrailers());
+            return DropNotice(notice) is null ? null : notice;
+        }
+        catch (InvalidOperationException)
+        {
+            return null; // not ended yet
+        }
+    }
+
+    private async Task ConverseAsync(AsyncDuplexStreamingCall<HouseholdMessage, CoordinatorMessage> call, CancellationToken cancel)
+    {
         IClientStreamWriter<HouseholdMessage> send = call.RequestStream;
-        // Every connection starts from a fresh machine; a rejoin then restores the checkpoint the coordinator's round asks for.
-        (_agent, _world) = Fresh();
-        _step = 0;
-        _applied.Clear();
-        await send.WriteAsync(_agent.Join(), cancel);
+        bool dropped = _dropped;
+        if (dropped)
+        {
+            // Dropped at a step deadline: the same machine and world ask to take part again (the coordinator answers at a round start).
+            await send.WriteAsync(_agent.Rejoin(), cancel);
+        }
+        else
+        {
+            // Every connection starts from a fresh machine; a rejoin then restores the checkpoint the coordinator's round asks for.
+            (_agent, _world) = Fresh();
+            _step = 0;
+            _applied.Clear();
+            await send.WriteAsync(_agent.Join(), cancel);
+        }
         bool done = false, first = true;
         // Masked sums: the first step waits for the key agreement — the directory with the household's own keys and a
         // relayed share from every peer (the coordinator relays them only once every household's shares are in).
@@ -183,7 +272,11 @@ public sealed class HouseholdHost
             if (message.BodyCase == CoordinatorMessage.BodyOneofCase.Model && first)
             {
                 first = false;
-                if (message.Model.Round > 0)
+                if (dropped)
+                {
+                    CatchUp(message.Model.Round);
+                }
+                else if (message.Model.Round > 0)
                 {
                     Restore(message.Model.Round);
                 }
@@ -287,6 +380,23 @@ public sealed class HouseholdHost
         return dayOver;
     }
 
+    /// <summary>
+    /// Back after a step dropout, at the start of <paramref name="round"/>: the steps the household missed ran in its world
+    /// at the desired power (an offline gateway does not curtail; the in-process runner's rule for offline households).
+    /// </summary>
+    private void CatchUp(int round)
+    {
+        long from = _step, to = (long)round * _run.StepsPerRound;
+        while (_step < to && !_world.HorizonOver)
+        {
+            _world.Observe(_state);
+            Apply((float)_world.Environment.FlexDesiredKw[0]);
+        }
+        _dropped = false;
+        DropoutRejoins++;
+        _log.LogInformation("household '{Id}' rejoined at round {Round} after a step dropout; steps {From}..{To} ran at the desired power", _id, round, from, _step - 1);
+    }
+
     private string CheckpointPath(int round) => Path.Combine(StateFolder!, FormattableString.Invariant($"{_id}.round-{round:D5}.ckpt"));
 
     private void Checkpoint(TrainingCall call)
@@ -355,6 +465,12 @@ public sealed class HouseholdHost
         if (_world.HorizonOver)
         {
             return true;
+        }
+        if (_step == StallBeforeStep && !_stalled)
+        {
+            _stalled = true;
+            _log.LogWarning("household '{Id}': stalling before step {Step} (fault injection)", _id, _step);
+            return false;
         }
         _world.Observe(_state);
         ReadOnlySpan<double> min = _world.Environment.FlexMinKw, des = _world.Environment.FlexDesiredKw, baseKw = _world.Environment.BaseKw;

@@ -97,6 +97,17 @@ internal sealed class HostProcess : IDisposable
         return _p.ExitCode;
     }
 
+    /// <summary>Sends a signal by name (e.g. STOP, CONT) with kill(1).</summary>
+    public void Signal(string name)
+    {
+        using Process kill = Process.Start("kill", ["-s", name, _p.Id.ToString(System.Globalization.CultureInfo.InvariantCulture)]);
+        kill.WaitForExit();
+        if (kill.ExitCode != 0)
+        {
+            throw new InvalidOperationException($"kill -s {name} {_p.Id} exited with {kill.ExitCode}");
+        }
+    }
+
     /// <summary>SIGKILL (no clean-up of any kind in the process).</summary>
     public void Kill()
     {

@@ -205,18 +205,34 @@ public sealed class MaskedSumsHostTests
         return (p.ExitCode, stdout, await stderr);
     }
 
-    [Fact]
-    public async Task LaunchWithRealProcessesRunsMaskedSumsToTheInProcessModel()
+    [Theory]
+    [InlineData("masked-sums")]
+    [InlineData("dp-masked-sums")] // the dp wrapper over masked sums: its key agreement found through the scheme object, not its name
+    public async Task LaunchWithRealProcessesRunsMaskedSumsToTheInProcessModel(string scheme)
     {
         var (code, stdout, stderr) = await Fedgrid("launch", "--households", "3", "--days", "1", "--seed", "7", "--steps-per-round", "24",
-            "--scheme", "masked-sums", "--step-timeout", "30", "--json");
+            "--scheme", scheme, "--step-timeout", "30", "--json");
         Assert.True(code == 0, stderr);
         using JsonDocument d = JsonDocument.Parse(stdout);
         JsonElement r = d.RootElement;
         Assert.Equal(4, r.GetProperty("processes").GetInt32());
         Assert.True(r.GetProperty("matchesInProcess").GetBoolean());
-        Assert.Equal(Convert.ToHexStringLower(Masked.RunInProcess().ModelSha256), r.GetProperty("finalModelSha256").GetString());
+        Assert.Equal(Convert.ToHexStringLower((Masked with { Scheme = scheme }).RunInProcess().ModelSha256), r.GetProperty("finalModelSha256").GetString());
         Assert.Contains("finished after 96 steps", stderr, StringComparison.Ordinal);
+    }
+
+    [Fact]
+    public void TheHostsAskTheSchemeObjectWhetherItHasMessagesOfItsOwn()
+    {
+        foreach (string name in FedGrid.Federation.Schemes.FederationSchemes.Names)
+        {
+            var run = HostedRunTests.Small with { Scheme = name };
+            var options = run.CreateRunOptions();
+            var c = new FedGrid.Federation.Coordination.Coordinator(FedGrid.Federation.Runs.InProcessFederation.CreateCoordinatorSetup(run.CreateScenario(), options,
+                FedGrid.Federation.Training.HouseholdControlTask.FeaturesPerHousehold), NullTranscript.Instance);
+            // Masked sums (alone or under the dp wrapper) agree keys after admission; the other schemes send nothing of their own.
+            Assert.Equal(name is "masked-sums" or "dp-masked-sums", c.SchemeMessages);
+        }
     }
 
     [Fact]

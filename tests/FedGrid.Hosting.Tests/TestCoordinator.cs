@@ -13,9 +13,11 @@ internal sealed class TestCoordinator : IAsyncDisposable
     private readonly TaskCompletionSource<int> _port = new(TaskCreationOptions.RunContinuationsAsynchronously);
     private readonly CancellationTokenSource _cancel = new();
 
-    private TestCoordinator(HostedRunSettings run, TimeSpan roundTimeout, string? tls, TimeSpan? stepTimeout, string? transcript)
+    private TestCoordinator(HostedRunSettings run, TimeSpan roundTimeout, string? tls, TimeSpan? stepTimeout, string? transcript,
+        Func<CoordinatorHostOptions, CoordinatorHostOptions>? adjust, int port)
     {
-        _app = CoordinatorHost.Build(new CoordinatorHostOptions { Run = run, RoundTimeout = roundTimeout, StepTimeout = stepTimeout, TranscriptPath = transcript }, IPAddress.Loopback, 0, tlsFolder: tls,
+        var options = new CoordinatorHostOptions { Run = run, RoundTimeout = roundTimeout, StepTimeout = stepTimeout, TranscriptPath = transcript };
+        _app = CoordinatorHost.Build(adjust is null ? options : adjust(options), IPAddress.Loopback, port, tlsFolder: tls,
             logging: b => { b.ClearProviders(); b.AddProvider(new ListLogger(Lines)); });
         Run = CoordinatorHost.RunAsync(_app, p => _port.TrySetResult(p), _cancel.Token, stopWhenDone: false);
         _ = Run.ContinueWith(t => _port.TrySetException(t.Exception ?? new Exception("coordinator ended before listening")), TaskContinuationOptions.NotOnRanToCompletion);
@@ -27,12 +29,13 @@ internal sealed class TestCoordinator : IAsyncDisposable
 
     public Uri Address { get; private set; } = null!;
 
+    /// <summary>Starts a coordinator; <paramref name="adjust"/> changes its options (state folder, resume, fault injection), <paramref name="port"/> 0 for any free port.</summary>
     public static async Task<TestCoordinator> StartAsync(HostedRunSettings run, TimeSpan? roundTimeout = null, string? tls = null,
-        TimeSpan? stepTimeout = null, string? transcript = null)
+        TimeSpan? stepTimeout = null, string? transcript = null, Func<CoordinatorHostOptions, CoordinatorHostOptions>? adjust = null, int port = 0)
     {
-        var c = new TestCoordinator(run, roundTimeout ?? TimeSpan.FromSeconds(30), tls, stepTimeout, transcript);
-        int port = await c._port.Task.WaitAsync(TimeSpan.FromSeconds(30));
-        c.Address = new Uri($"{(tls is null ? "http" : "https")}://127.0.0.1:{port}");
+        var c = new TestCoordinator(run, roundTimeout ?? TimeSpan.FromSeconds(30), tls, stepTimeout, transcript, adjust, port);
+        int bound = await c._port.Task.WaitAsync(TimeSpan.FromSeconds(30));
+        c.Address = new Uri($"{(tls is null ? "http" : "https")}://127.0.0.1:{bound}");
         return c;
     }
 

@@ -206,6 +206,9 @@ public sealed class Coordinator
     /// <returns>True when dropped.</returns>
     public bool IsDropped(int household) => _dropped[household];
 
+    /// <summary>Whether the scheme's coordinator side exchanges messages of its own (<see cref="ICoordinatorSchemeMessages"/>: a key agreement after admission, e.g. masked sums), which a transport must carry.</summary>
+    public bool SchemeMessages => _schemeMessages is not null;
+
     /// <summary>Households dropped out of a step so far (each time a household was dropped).</summary>
     public int StepDropouts { get; private set; }
 
@@ -922,7 +925,9 @@ public sealed class Coordinator
 
     // ---- Round-end checkpoint and rejoin (additive region; round starts only, not on the decision-step path) ----
 
-    private const int SnapshotVersion = 1;
+    /// <summary>Version 2 adds the households dropped at a step deadline (and the dropout and rejoin counters) and, in the
+    /// projection side's state, each household's last report; version 1 snapshots are refused (they did not record them).</summary>
+    private const int SnapshotVersion = 2;
 
     /// <summary>Whether the machine stands at a round start: the previous round closed, no step of this round begun (the only point where it can be checkpointed or a household can rejoin).</summary>
     public bool AtRoundStart => Phase == CoordinatorPhase.CollectingPartialSums && _stepCount == 0 && _projectionCount == 0 && (_step + 1) % _stepsPerRound == 0;
@@ -940,8 +945,10 @@ public sealed class Coordinator
 
     /// <summary>
     /// Writes everything the machine needs to continue from this round start: round, last step, counters, the registered
-    /// households, the model and the projection side's state (the solver's warm start). The selection needs no state (it
-    /// is drawn from the seed and the round); the clear schemes' coordinator side keeps none between rounds.
+    /// households, the model, the projection side's state (the solver's warm start, the last reports a dropped household
+    /// is stood in with) and which households a step deadline dropped (they stay out until they rejoin). The selection
+    /// needs no state (it is drawn from the seed and the round); the clear schemes' coordinator side keeps none between
+    /// rounds. A masked-sums recovery lives inside one step and never spans a round start.
     /// </summary>
     /// <param name="writer">Where to write.</param>
     /// <exception cref="InvalidOperationException">Not at a round start.</exception>
@@ -978,6 +985,12 @@ public sealed class Coordinator
         SnapshotIO.WriteFloats(writer, _actor.Parameters);
         SnapshotIO.WriteFloats(writer, _critic.Parameters);
         _projection.WriteState(writer);
+        writer.Write(StepDropouts);
+        writer.Write(Rejoins);
+        foreach (bool d in _dropped)
+        {
+            writer.Write(d);
+        }
     }
 
     /// <summary>Restores a fresh machine (nobody joined) to the round start of <see cref="WriteSnapshot"/>; the households then <see cref="Rejoin"/>.</summary>
@@ -993,7 +1006,9 @@ public sealed class Coordinator
         int version = reader.ReadInt32();
         if (version != SnapshotVersion)
         {
-            throw new InvalidDataException($"coordinator snapshot version {version}; this build reads {SnapshotVersion}");
+            throw new InvalidDataException(version == 1
+                ? $"coordinator snapshot version 1 (it does not record the households dropped at a step deadline); this build reads version {SnapshotVersion}: finish that run with the build that wrote it, or start afresh"
+                : $"coordinator snapshot version {version}; this build reads {SnapshotVersion}");
         }
         int m = reader.ReadInt32();
         if (m != _m)
@@ -1028,6 +1043,22 @@ public sealed class Coordinator
         SnapshotIO.ReadFloats(reader, _critic.Parameters, "critic");
         _projection = _setup.ProjectionForm.CreateCoordinatorSide(_setup.Feeder, registered, _setup.FixedLoads, _setup.Projection);
         _projection.ReadState(reader);
+        int stepDropouts = reader.ReadInt32(), rejoins = reader.ReadInt32();
+        var dropped = new bool[_m];
+        int droppedCount = 0;
+        for (int h = 0; h < _m; h++)
+        {
+            dropped[h] = reader.ReadBoolean();
+            droppedCount += dropped[h] ? 1 : 0;
+        }
+        if (stepDropouts < droppedCount || rejoins < 0)
+        {
+            throw new InvalidDataException($"coordinator snapshot: {droppedCount} of {_m} households dropped after {stepDropouts} step dropouts and {rejoins} rejoins");
+        }
+        dropped.CopyTo(_dropped, 0);
+        _droppedCount = droppedCount;
+        StepDropouts = stepDropouts;
+        Rejoins = rejoins;
         registered.CopyTo(_registered, 0);
         _joined = _m;
         _round = round;

@@ -322,9 +322,32 @@ public sealed class HouseholdProjectionInputs : IProjectionInputsForm
             message.Setpoint = r;
         }
 
-        public void WriteState(BinaryWriter writer) => _projector.WriteState(writer);
+        // The solver's warm start, then each household's last report (what a dropped household is stood in with).
+        public void WriteState(BinaryWriter writer)
+        {
+            _projector.WriteState(writer);
+            for (int h = 0; h < _known.Length; h++)
+            {
+                writer.Write(_known[h]);
+                writer.Write(_lastMaxKw[h]);
+                writer.Write(_lastBaseKw[h]);
+            }
+        }
 
-        public void ReadState(BinaryReader reader) => _projector.ReadState(reader);
+        public void ReadState(BinaryReader reader)
+        {
+            _projector.ReadState(reader);
+            for (int h = 0; h < _known.Length; h++)
+            {
+                _known[h] = reader.ReadBoolean();
+                _lastMaxKw[h] = reader.ReadDouble();
+                _lastBaseKw[h] = reader.ReadDouble();
+                if (!(double.IsFinite(_lastMaxKw[h]) && double.IsFinite(_lastBaseKw[h])))
+                {
+                    throw new InvalidDataException($"projection state: household {h}'s last report is not finite");
+                }
+            }
+        }
     }
 }
 
