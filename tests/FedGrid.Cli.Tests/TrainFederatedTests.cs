@@ -72,7 +72,7 @@ public class TrainFederatedTests
     [Fact]
     public void Privacy_and_aggregation_options_are_checked_with_clear_errors()
     {
-        Bad(new FederatedTrainOptions("plain", NoiseMultiplier: 1), "--noise-multiplier, --clip-norm and --upload-clip-norm need --scheme dp or dp-masked-sums; 'plain' adds no noise");
+        Bad(new FederatedTrainOptions("plain", NoiseMultiplier: 1), "--noise-multiplier, --clip-norm, --upload-clip-norm and --delta need --scheme dp or dp-masked-sums; 'plain' adds no noise");
         Bad(new FederatedTrainOptions("masked-sums", ClipNorm: 1), "need --scheme dp or dp-masked-sums; 'masked-sums'");
         Bad(new FederatedTrainOptions("dp", NoiseMultiplier: 0), "--noise-multiplier must be positive and finite, got 0");
         Bad(new FederatedTrainOptions("dp", NoiseMultiplier: double.NaN), "--noise-multiplier must be positive and finite");

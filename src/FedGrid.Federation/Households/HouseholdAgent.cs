@@ -198,6 +198,10 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException($"household {_identity.Id} cannot rejoin before it was admitted and had a model");
         }
+        if (Phase == HouseholdPhase.AwaitingModel && !_rejoining)
+        {
+            _round--; // it left after its round's training (masked uploads: its upload was lost): that round was its last
+        }
         _rejoin.LastRound = _round;
         _buffer!.Count = 0;
         _pendingTrainingRound = -1;
@@ -313,11 +317,12 @@ public sealed class HouseholdAgent
         _lo = new float[k];
         _hi = new float[k];
         _action = new float[k];
-        int ownA = _scheme.ColumnsCrossWire ? _actor.FirstLayerBlockRange(m).Length : 0;
-        int ownC = _scheme.ColumnsCrossWire ? _critic.FirstLayerBlockRange(m).Length : 0;
+        int ownA = _scheme.ColumnsInUploads ? _actor.FirstLayerBlockRange(m).Length : 0;
+        int ownC = _scheme.ColumnsInUploads ? _critic.FirstLayerBlockRange(m).Length : 0;
         _uploadActor = new float[ownA + _actor.SharedRange().Length];
         _uploadCritic = new float[ownC + _critic.SharedRange().Length];
         _schemeSide = _scheme.CreateHouseholdSide(m, _seed);
+        _schemeSide.Configure(UploadLayout.Of(_actor, _householdCount, 2 * k), UploadLayout.Of(_critic, _householdCount, criticShape.OutputSize / _householdCount));
         if (!_scheme.ColumnsCrossWire)
         {
             // The household draws its own first-layer columns (same distribution as the coordinator's initialisation).
@@ -470,6 +475,11 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException($"household {_index} is in round {_round}; training call for round {call.Round}");
         }
+        if (Phase is not (HouseholdPhase.AwaitingCost or HouseholdPhase.Ready))
+        {
+            Expect(HouseholdPhase.Ready, "take a training call");
+        }
+        _schemeSide!.TrainingCalled(call);
         if (Phase == HouseholdPhase.AwaitingCost)
         {
             _pendingTrainingRound = call.Round;
@@ -488,7 +498,7 @@ public sealed class HouseholdAgent
         {
             int samples = _trainer!.Train(b);
             int m = _index;
-            if (_scheme.ColumnsCrossWire)
+            if (_scheme.ColumnsInUploads)
             {
                 var (co, cn) = _actor!.FirstLayerBlockRange(m);
                 _actor.Parameters.Slice(co, cn).CopyTo(_uploadActor);
@@ -508,7 +518,7 @@ public sealed class HouseholdAgent
             }
             _upload.Round = round;
             _upload.SampleCount = samples;
-            _upload.Scope = _scheme.ColumnsCrossWire ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
+            _upload.Scope = _scheme.ColumnsInUploads ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
             _schemeSide!.EncodeUpload(_uploadActor, _uploadCritic, _upload);
             _out.HouseholdIndex = _index;
             _out.Upload = _upload;
