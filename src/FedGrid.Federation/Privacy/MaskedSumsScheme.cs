@@ -246,6 +246,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private float[] _baseActor = [], _baseCritic = [];
         private double[] _uploadValues = [];
         private ulong[] _uploadWords = [];
+        private FixedPointEncoding? _uploadEncoding;
 
         public HouseholdSide(MaskedSumsScheme scheme, int index, IHouseholdSchemeSide inner)
         {
@@ -514,10 +515,10 @@ public sealed class MaskedSumsScheme : IFederationScheme
                 _uploadValues[na + i] = Value(_uploadKinds[na + i], message.CriticParameters[i], _baseCritic[i], samples);
             }
             _uploadValues[length - 1] = samples;
-            FixedPointEncoding encoding = UploadEncoding(_maskKeyOf.Length);
+            _uploadEncoding ??= UploadEncoding(_maskKeyOf.Length);
             try
             {
-                encoding.Encode(_uploadValues, _uploadWords);
+                _uploadEncoding.Encode(_uploadValues, _uploadWords);
             }
             catch (OverflowException e)
             {
