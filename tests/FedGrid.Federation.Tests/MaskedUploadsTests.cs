@@ -166,14 +166,16 @@ public sealed class MaskedUploadsTests
         Assert.Equal(2, r.AggregatedRounds);
         Assert.Equal(2, scheme.CompletedUploadSums);
         Assert.False(scheme.ColumnsInUploads);
-        // The first-layer columns stay home under masked uploads: the households' own W_m is the model's W_m.
-        Compare(clear.Coordinator.Actor.Parameters, WithOwnColumns(masked, actor: true), "actor");
-        Compare(clear.Coordinator.Critic.Parameters, WithOwnColumns(masked, actor: false), "critic");
+        // The first-layer columns and the output heads stay home under masked uploads: the households' own W_m and heads
+        // are the model's.
+        Compare(clear.Coordinator.Actor.Parameters, WithOwnParts(masked, actor: true), "actor");
+        Compare(clear.Coordinator.Critic.Parameters, WithOwnParts(masked, actor: false), "critic");
+        Assert.True(scheme.HeadsStayHome);
         Assert.Equal(clear.Days[0].Cost, masked.Days[0].Cost, 6);
         // Every upload in the transcript is masked ring words only; every training call names the participants.
         ParameterUpload[] uploads = [.. sink.Records.Where(x => x.Kind() == RecordKind.Upload).Select(x => x.Received!.Upload)];
         Assert.Equal(64, uploads.Length);
-        int length = masked.Coordinator.Actor.SharedRange().Length + masked.Coordinator.Critic.SharedRange().Length + 1;
+        int length = OutsideHeads(masked.Coordinator.Actor, true).Count + OutsideHeads(masked.Coordinator.Critic, false).Count + 1;
         Assert.All(uploads, u =>
         {
             Assert.Empty(u.ActorParameters);
@@ -194,19 +196,25 @@ public sealed class MaskedUploadsTests
     }
 
     [Fact]
-    public void DpOverMaskedSumsWithMaskedUploadsKeepsTheNoiseAndTheModel()
+    public void DpOverMaskedSumsWithMaskedUploadsKeepsTheNoiseAndTheAggregate()
     {
-        // The DP layer noises the update before the masks; masking changes neither the noise nor the aggregate.
+        // The DP layer noises the update before the masks; masking changes neither the noise nor the aggregate of the shared
+        // parameters (round 0, from the same model and the same draws). The heads differ by design: under masked uploads
+        // each household keeps its own (clean) head instead of taking back its noisy upload.
         IFederationScheme Dp(bool mask) => FederationSchemes.FromName(DifferentiallyPrivateScheme.MaskedSchemeName, privacy: new DifferentialPrivacySettings(NoiseMultiplier: 0.5), maskUploads: mask);
-        var clear = new InProcessFederation(TestRuns.Default(), Options(Dp(false)), new RecordingTranscript());
+        var clearSink = new RecordingTranscript();
+        var clear = new InProcessFederation(TestRuns.Default(), Options(Dp(false)), clearSink);
         clear.Run();
         IFederationScheme scheme = Dp(true);
-        var masked = new InProcessFederation(TestRuns.Default(), Options(scheme), new RecordingTranscript());
+        var sink = new RecordingTranscript();
+        var masked = new InProcessFederation(TestRuns.Default(), Options(scheme), sink);
         masked.Run();
-        Compare(clear.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
-        Compare(clear.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
+        ModelBroadcast a = FirstAggregate(clearSink), b = FirstAggregate(sink);
+        Compare([.. OutsideHeads(a.ActorParameters, masked.Coordinator.Actor, true)], [.. OutsideHeads(b.ActorParameters, masked.Coordinator.Actor, true)], "actor");
+        Compare([.. OutsideHeads(a.CriticParameters, masked.Coordinator.Critic, false)], [.. OutsideHeads(b.CriticParameters, masked.Coordinator.Critic, false)], "critic");
         var dp = (DifferentiallyPrivateScheme)scheme;
         Assert.Equal(2 * 64, dp.UpdatesReleased); // still noised: two updates per upload
+        Assert.True(dp.HeadsStayHome);
     }
 
     private static ScriptedDropout[] LostUploads(int count) =>
@@ -231,12 +239,12 @@ public sealed class MaskedUploadsTests
         CoordinatorEvent recovered = sink.Records.Select(x => x.Event).Single(e => e?.Kind == EventKind.SumRecovered)!;
         Assert.Equal(Enumerable.Range(17, 15), recovered.Households);
         Assert.Equal(17, sink.Records.Count(x => x.Received?.BodyCase == HouseholdMessage.BodyOneofCase.RecoveryShares));
-        // The round-0 aggregate is FedAvg over the 17 uploads that arrived, as without masks (shared part; the masked run's
-        // broadcast carries the initial first-layer columns' tail only, which is the shared range in both).
+        // The round-0 aggregate is FedAvg over the 17 uploads that arrived, as without masks (the shared parameters outside
+        // the output heads, which stay home under masked uploads).
         ModelBroadcast a = FirstAggregate(clearSink), b = FirstAggregate(sink);
         Assert.Equal(a.Contributors, b.Contributors);
-        Compare([.. a.ActorParameters], [.. b.ActorParameters], "actor broadcast");
-        Compare([.. a.CriticParameters], [.. b.CriticParameters], "critic broadcast");
+        Compare([.. OutsideHeads(a.ActorParameters, masked.Coordinator.Actor, true)], [.. OutsideHeads(b.ActorParameters, masked.Coordinator.Actor, true)], "actor broadcast");
+        Compare([.. OutsideHeads(a.CriticParameters, masked.Coordinator.Critic, false)], [.. OutsideHeads(b.CriticParameters, masked.Coordinator.Critic, false)], "critic broadcast");
         // The 15 came back with fresh keys and took part in round 1.
         Assert.Equal(15, masked.Coordinator.Rejoins);
     }
@@ -288,15 +296,32 @@ public sealed class MaskedUploadsTests
         Assert.False(((MaskedSumsScheme)FederationSchemes.FromName(MaskedSumsScheme.SchemeName)).MaskUploads);
     }
 
-    /// <summary>The coordinator's parameters with each household's own first-layer columns put in (they stay home under masked uploads).</summary>
-    private static float[] WithOwnColumns(InProcessFederation run, bool actor)
+    /// <summary>Outputs of one household's head: 2k for the actor, 1 for the critic (one head per household of the 32).</summary>
+    private static int Outputs(FedGrid.Learning.Networks.DenseNetwork net) => net.Shape.OutputSize / 32;
+
+    /// <summary>The positions of a network's shared part outside every household's output head.</summary>
+    private static List<int> OutsideHeads(FedGrid.Learning.Networks.DenseNetwork net, bool actor)
+    {
+        UploadLayout layout = UploadLayout.Of(net, 32, Outputs(net));
+        var head = new bool[layout.SharedLength];
+        foreach (var ranges in layout.Heads)
+            foreach ((int o, int n) in ranges)
+                head.AsSpan(o, n).Fill(true);
+        return [.. Enumerable.Range(0, head.Length).Where(i => !head[i])];
+    }
+
+    private static IEnumerable<float> OutsideHeads(IList<float> shared, FedGrid.Learning.Networks.DenseNetwork net, bool actor) =>
+        OutsideHeads(net, actor).Select(i => shared[i]);
+
+    /// <summary>The coordinator's parameters with each household's own first-layer columns and output head put in (they stay home under masked uploads).</summary>
+    private static float[] WithOwnParts(InProcessFederation run, bool actor)
     {
         float[] p = [.. (actor ? run.Coordinator.Actor : run.Coordinator.Critic).Parameters];
         for (int m = 0; m < run.Households.Count; m++)
         {
             var net = actor ? run.Households[m].Actor : run.Households[m].Critic;
-            var (o, n) = net.FirstLayerBlockRange(m);
-            net.Parameters.Slice(o, n).CopyTo(p.AsSpan(o, n));
+            foreach (var (o, n) in FedGrid.Federation.Coordination.Coordinator.OwnedRanges(net, m, Outputs(net)))
+                net.Parameters.Slice(o, n).CopyTo(p.AsSpan(o, n));
         }
         return p;
     }

@@ -1,3 +1,4 @@
+using FedGrid.Federation.Coordination;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Schemes;
 using FedGrid.Federation.Wire;
@@ -71,6 +72,7 @@ public sealed class HouseholdAgent
     private double _flexMin, _flexMax, _baseKw, _proposal, _setpoint;
     private int _pendingTrainingRound = -1;
     private bool _pendingSelected, _hasModel, _rejoining, _stepStored;
+    private float[] _heads = [];
     private readonly RejoinRequest _rejoin = new();
 
     /// <summary>Creates a household machine.</summary>
@@ -362,8 +364,17 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException("the first model must carry the household's first-layer columns");
         }
+        bool keepHeads = _hasModel && _scheme.HeadsStayHome;
+        if (keepHeads)
+        {
+            Heads(save: true);
+        }
         Load(_actor!, model.ActorParameters, own, "actor");
         Load(_critic!, model.CriticParameters, own, "critic");
+        if (keepHeads)
+        {
+            Heads(save: false); // masked uploads: the head never left, the broadcast's copy is the coordinator's stale one
+        }
         var (aso, asn) = _actor!.SharedRange();
         var (cso, csn) = _critic!.SharedRange();
         _schemeSide!.ModelLoaded(_actor.Parameters.Slice(aso, asn), _critic.Parameters.Slice(cso, csn));
@@ -373,6 +384,33 @@ public sealed class HouseholdAgent
         _rejoining = false;
         Phase = HouseholdPhase.Ready;
         return rejoined;
+    }
+
+    /// <summary>Copies the household's own output heads (actor and critic) into or out of <see cref="_heads"/>.</summary>
+    private void Heads(bool save)
+    {
+        int i = 0;
+        foreach ((DenseNetwork net, int outputs) in new[] { (_actor!, 2 * (_actor!.Shape.OutputSize / (2 * _householdCount))), (_critic!, _critic!.Shape.OutputSize / _householdCount) })
+        {
+            var ranges = Coordinator.OwnedRanges(net, _index, outputs);
+            for (int r = 1; r < ranges.Length; r++)
+            {
+                var (o, n) = ranges[r];
+                if (_heads.Length < i + n)
+                {
+                    Array.Resize(ref _heads, i + n);
+                }
+                if (save)
+                {
+                    net.Parameters.Slice(o, n).CopyTo(_heads.AsSpan(i, n));
+                }
+                else
+                {
+                    _heads.AsSpan(i, n).CopyTo(net.Parameters.Slice(o, n));
+                }
+                i += n;
+            }
+        }
     }
 
     private HouseholdMessage Outgoing()

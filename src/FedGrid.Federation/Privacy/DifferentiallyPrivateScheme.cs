@@ -122,6 +122,9 @@ public sealed class DifferentiallyPrivateScheme : IFederationScheme
     /// <inheritdoc />
     public bool ColumnsInUploads => _inner.ColumnsInUploads;
 
+    /// <inheritdoc />
+    public bool HeadsStayHome => _inner.HeadsStayHome;
+
     /// <summary>Partial-sums vectors released so far, over all households (actor and critic count one each).</summary>
     public long PartialSumsReleased => Interlocked.Read(ref _sumsReleased);
 

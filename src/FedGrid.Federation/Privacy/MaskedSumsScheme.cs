@@ -134,6 +134,9 @@ public sealed class MaskedSumsScheme : IFederationScheme
     /// <inheritdoc />
     public bool ColumnsInUploads => !MaskUploads && _inner.ColumnsInUploads;
 
+    /// <inheritdoc />
+    public bool HeadsStayHome => MaskUploads || _inner.HeadsStayHome;
+
     /// <summary>Steps the coordinator side summed with every household present.</summary>
     public long CompletedSums { get; private set; }
 
@@ -163,21 +166,32 @@ public sealed class MaskedSumsScheme : IFederationScheme
 
     private static FixedPointEncoding UploadEncoding(int households) => new(MaxAbsUploadValue, households, UploadFractionalBits(households));
 
-    /// <summary>Per position of an upload vector: 0 shared (weighted by n), 1 the household's own head (unweighted), 2 another household's head (0).</summary>
-    private static byte[] UploadKinds(UploadLayout actor, UploadLayout critic, int household)
+    /// <summary>
+    /// The positions of the concatenated shared parts (actor ‖ critic) a masked upload carries: every position outside the
+    /// households' output heads (the heads stay with their households under masked uploads).
+    /// </summary>
+    private static int[] UploadPositions(UploadLayout actor, UploadLayout critic)
     {
-        var kinds = new byte[actor.SharedLength + critic.SharedLength + 1];
+        var head = new bool[actor.SharedLength + critic.SharedLength];
         Mark(actor, 0);
         Mark(critic, actor.SharedLength);
-        return kinds;
+        var positions = new List<int>(head.Length);
+        for (int i = 0; i < head.Length; i++)
+        {
+            if (!head[i])
+            {
+                positions.Add(i);
+            }
+        }
+        return [.. positions];
 
         void Mark(UploadLayout layout, int start)
         {
-            for (int k = 0; k < layout.Heads.Count; k++)
+            foreach ((int Offset, int Length)[] ranges in layout.Heads)
             {
-                foreach ((int o, int n) in layout.Heads[k])
+                foreach ((int o, int n) in ranges)
                 {
-                    kinds.AsSpan(start + o, n).Fill(k == household ? (byte)1 : (byte)2);
+                    head.AsSpan(start + o, n).Fill(true);
                 }
             }
         }
@@ -240,7 +254,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private ulong[] _actor = [], _critic = [];
         private readonly MaskedSumsScheme _scheme;
         private UploadLayout? _actorLayout, _criticLayout;
-        private byte[] _uploadKinds = [];
+        private int[] _uploadPositions = [];
         private bool[] _participants = [];
         private int _calledRound = -1;
         private float[] _baseActor = [], _baseCritic = [];
@@ -493,26 +507,26 @@ public sealed class MaskedSumsScheme : IFederationScheme
             {
                 throw new ProtocolException($"masked uploads: household {_index} uploads for round {message.Round} without its pair keys, layouts or a training call naming the participants");
             }
-            int na = _actorLayout.SharedLength, nc = _criticLayout.SharedLength, length = na + nc + 1;
+            int na = _actorLayout.SharedLength, nc = _criticLayout.SharedLength;
             if (message.ActorParameters.Count != na || message.CriticParameters.Count != nc || _baseActor.Length != na || _baseCritic.Length != nc)
             {
                 throw new ProtocolException($"masked uploads: household {_index}'s upload carries {message.ActorParameters.Count} + {message.CriticParameters.Count} parameters; the shared parts are {na} + {nc}");
             }
-            if (_uploadValues.Length != length)
+            if (_uploadPositions.Length == 0)
             {
-                _uploadValues = new double[length];
-                _uploadWords = new ulong[length];
-                _uploadKinds = UploadKinds(_actorLayout, _criticLayout, _index);
+                _uploadPositions = UploadPositions(_actorLayout, _criticLayout);
+                _uploadValues = new double[_uploadPositions.Length + 1];
+                _uploadWords = new ulong[_uploadPositions.Length + 1];
             }
+            int length = _uploadValues.Length;
             _masker.Reserve(length); // a no-op but after a rejoin, whose fresh keys come with a new masker
             double samples = message.SampleCount;
-            for (int i = 0; i < na; i++)
+            for (int j = 0; j < _uploadPositions.Length; j++)
             {
-                _uploadValues[i] = Value(_uploadKinds[i], message.ActorParameters[i], _baseActor[i], samples);
-            }
-            for (int i = 0; i < nc; i++)
-            {
-                _uploadValues[na + i] = Value(_uploadKinds[na + i], message.CriticParameters[i], _baseCritic[i], samples);
+                int i = _uploadPositions[j];
+                double trained = i < na ? message.ActorParameters[i] : message.CriticParameters[i - na];
+                double broadcast = i < na ? _baseActor[i] : _baseCritic[i - na];
+                _uploadValues[j] = samples * (trained - broadcast);
             }
             _uploadValues[length - 1] = samples;
             _uploadEncoding ??= UploadEncoding(_maskKeyOf.Length);
@@ -531,13 +545,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
             message.Scope = ParameterScope.Shared;
             Fill(message.MaskedParameters, _uploadWords);
         }
-
-        private static double Value(byte kind, float trained, float broadcast, double samples) => kind switch
-        {
-            0 => samples * ((double)trained - broadcast),
-            1 => (double)trained - broadcast,
-            _ => 0,
-        };
 
         public void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared)
         {
@@ -564,7 +571,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
     private sealed class CoordinatorSide : ICoordinatorSchemeSide, ICoordinatorSchemeMessages, IMaskedUploads
     {
         private UploadLayout? _actorLayout, _criticLayout;
-        private byte[] _headOwner = [];
+        private int[] _positions = [];
         private MaskedSumUnmasker? _uploads;
         private readonly Dictionary<int, List<ShamirShare>> _uploadShares = [];
         private readonly List<int> _uploadPending = [];
@@ -598,14 +605,14 @@ public sealed class MaskedSumsScheme : IFederationScheme
 
         public IMaskedUploads? MaskedUploads => _scheme.MaskUploads ? this : null;
 
-        private int UploadLength => _actorLayout!.SharedLength + _criticLayout!.SharedLength + 1;
+        private int UploadLength => _positions.Length + 1;
 
         public void Configure(UploadLayout actor, UploadLayout critic)
         {
             _actorLayout = actor;
             _criticLayout = critic;
-            // 0: a shared parameter (sum / Σn); 1: some household's own head (its update alone, added as it is).
-            _headOwner = UploadKinds(actor, critic, -1);
+            // Every shared position but the output heads (they stay with their households).
+            _positions = UploadPositions(actor, critic);
             _uploadScratch = new ulong[UploadLength];
             _uploadTotal = new double[UploadLength];
         }
@@ -622,7 +629,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             }
             if (upload.MaskedParameters.Count != UploadLength)
             {
-                throw new ProtocolException($"masked uploads: household {household}'s masked upload carries {upload.MaskedParameters.Count} words; {UploadLength} expected ({_actorLayout!.SharedLength} actor + {_criticLayout!.SharedLength} critic + 1 sample count)");
+                throw new ProtocolException($"masked uploads: household {household}'s masked upload carries {upload.MaskedParameters.Count} words; {UploadLength} expected (the {_positions.Length} shared parameters outside the output heads and the sample count)");
             }
             if (_excluded[household] || _uploads.IsRevealed(household))
             {
@@ -694,13 +701,18 @@ public sealed class MaskedSumsScheme : IFederationScheme
             double samples = _uploadTotal[length - 1];
             if (samples > 0)
             {
-                for (int i = 0; i < na; i++)
+                // FedAvg from the sum: θ_b + Σ n_k Δ_k / Σ n_k; the heads keep the broadcast value (they stay home).
+                for (int j = 0; j < _positions.Length; j++)
                 {
-                    actorShared[i] = Average(_headOwner[i], actorShared[i], _uploadTotal[i], samples);
-                }
-                for (int i = 0; i < nc; i++)
-                {
-                    criticShared[i] = Average(_headOwner[na + i], criticShared[i], _uploadTotal[na + i], samples);
+                    int i = _positions[j];
+                    if (i < na)
+                    {
+                        actorShared[i] = (float)(actorShared[i] + (_uploadTotal[j] / samples));
+                    }
+                    else
+                    {
+                        criticShared[i - na] = (float)(criticShared[i - na] + (_uploadTotal[j] / samples));
+                    }
                 }
             }
             if (result.Status == MaskedSumStatus.Complete)
@@ -712,10 +724,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
             return new MaskedUploadsOutcome(new SumsOutcome(true, pending, [],
                 $"masks of {pending.Length} dropped participants removed from the masked uploads with the uploaders' shares (threshold {_threshold}); {result.Survivors} uploads summed"), (long)Math.Round(samples));
         }
-
-        /// <summary>FedAvg from the sum: θ_b + Σ n_k Δ_k / Σ n_k for a shared parameter; θ_b + Δ_m for household m's own head (m alone trains it).</summary>
-        private static float Average(byte kind, float broadcast, double total, double samples) =>
-            (float)(broadcast + (kind == 0 ? total / samples : total));
 
         public void AggregateUploads(IReadOnlyList<ReceivedUpload> uploads, Span<float> actorShared, Span<float> criticShared) =>
             _inner.AggregateUploads(uploads, actorShared, criticShared);

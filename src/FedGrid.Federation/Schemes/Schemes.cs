@@ -28,6 +28,13 @@ public interface IFederationScheme
     /// </summary>
     bool ColumnsInUploads => ColumnsCrossWire;
 
+    /// <summary>
+    /// Whether each household keeps its own output head (the parameters it alone trains besides W_m) instead of taking the
+    /// broadcast's copy: true under masked uploads, where the head never crosses (a sum of one term would be the
+    /// household's own update). Default false.
+    /// </summary>
+    bool HeadsStayHome => false;
+
     /// <summary>Creates household m's side (one per household; may hold per-household secrets and buffers).</summary>
     /// <param name="householdIndex">m.</param>
     /// <param name="householdSeed">The household's own seed (never sent).</param>
