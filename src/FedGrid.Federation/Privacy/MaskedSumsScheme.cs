@@ -68,8 +68,8 @@ public sealed class MaskedSumsScheme : IFederationScheme
     private const long UploadStep = uint.MaxValue;
 
     /// <summary>
-    /// Bound on each masked-upload value (2^20): n·|θ − θ_broadcast| for a shared parameter, |θ − θ_broadcast| for one of
-    /// the household's own head, and the sample count n. A larger value stops the run with an error naming it.
+    /// Bound on each masked-upload value (2^20): n·|θ − θ_broadcast| for a shared parameter and the sample count n. A larger
+    /// value stops the run with an error naming it.
     /// </summary>
     public const double MaxAbsUploadValue = 1 << 20;
 
@@ -86,9 +86,9 @@ public sealed class MaskedSumsScheme : IFederationScheme
 
     /// <summary>
     /// Whether the round's uploads are masked too: each called household sends encode(v) + pairwise masks among the round's
-    /// participants (<see cref="ParameterUpload.MaskedParameters"/>), v its update relative to the broadcast (weighted by its
-    /// sample count, its own head unweighted) and its sample count; the coordinator learns only the sum, from which FedAvg
-    /// follows exactly. The first-layer columns then stay home.
+    /// participants (<see cref="ParameterUpload.MaskedParameters"/>), v its update of the shared parameters outside the
+    /// output heads relative to the broadcast, weighted by its sample count, and the sample count; the coordinator learns
+    /// only the sum, from which FedAvg follows exactly. The first-layer columns and the output heads then stay home.
     /// </summary>
     public bool MaskUploads { get; }
 
