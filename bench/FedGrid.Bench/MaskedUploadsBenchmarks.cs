@@ -1,6 +1,7 @@
 using BenchmarkDotNet.Attributes;
 using FedGrid.Federation.Coordination;
 using FedGrid.Federation.Privacy;
+using FedGrid.Federation.Schemes;
 using FedGrid.Federation.Training;
 using FedGrid.Grid.Numerics;
 using FedGrid.Learning.Networks;
@@ -9,7 +10,7 @@ namespace FedGrid.Bench;
 
 /// <summary>
 /// Masked uploads, once per household per round, on the default run's sizes (32 households, the actor's and critic's
-/// shared parts of <see cref="TrainingDefaults.ActorCritic"/> plus the sample count): a household encodes its upload in
+/// shared parts of <see cref="TrainingDefaults.ActorCritic"/> outside the output heads, plus the sample count): a household encodes its upload in
 /// the uploads' fixed point (2^20 bound, 37 fractional bits) and adds 31 pair masks (AES-256-CTR, the upload context);
 /// the coordinator sums the 32 masked uploads in the ring and decodes the total (per household: divided by 32).
 /// Reference: the fixed-point encoding alone. Setup prints the wire bytes of one upload, masked against plain floats.
@@ -36,7 +37,8 @@ public class MaskedUploadsBenchmarks
     public void Setup()
     {
         var (actor, critic) = Coordinator.Shapes(Households, HouseholdControlTask.FeaturesPerHousehold, TrainingDefaults.ActorCritic);
-        int na = new DenseNetwork(actor).SharedRange().Length, nc = new DenseNetwork(critic).SharedRange().Length;
+        // The masked vector: the shared parameters outside the households' output heads (they stay home), and the count.
+        int na = Outside(new DenseNetwork(actor)), nc = Outside(new DenseNetwork(critic));
         Length = na + nc + 1;
         var random = new SeededRandom(11);
         _encoding = new FixedPointEncoding(MaskedSumsScheme.MaxAbsUploadValue, Households, MaskedSumsScheme.UploadFractionalBits(Households));
@@ -68,6 +70,12 @@ public class MaskedUploadsBenchmarks
         plain.CriticParameters.AddRange(Enumerable.Range(0, nc).Select(i => (float)_values[na + i]));
         Console.Error.WriteLine(FormattableString.Invariant(
             $"masked-uploads bench: {Length} words; upload message {masked.CalculateSize()} B masked, {plain.CalculateSize()} B plain (ratio {masked.CalculateSize() / (double)plain.CalculateSize():F3})"));
+    }
+
+    private static int Outside(DenseNetwork network)
+    {
+        UploadLayout layout = UploadLayout.Of(network, Households, network.Shape.OutputSize / Households);
+        return layout.SharedLength - layout.Heads.Sum(h => h.Sum(r => r.Length));
     }
 
     /// <summary>Reference: the uploads' fixed-point encoding alone.</summary>
