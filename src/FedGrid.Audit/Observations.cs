@@ -94,6 +94,11 @@ public sealed record RoundObservation
 
     /// <summary>First slot of the samples the upload was trained on (by the protocol's rule), or −1 for the round's own slots.</summary>
     public int TrainingStartSlot { get; init; } = -1;
+    /// <summary>
+    /// Whether the household uploaded in this round as masked ring words only (masked uploads): the coordinator holds the
+    /// round's sum over the participants, no individual update, so <see cref="Updates"/> stays empty.
+    /// </summary>
+    public bool MaskedUpload { get; init; }
 }
 
 /// <summary>An uploaded change of one network's first layer for one household block.</summary>

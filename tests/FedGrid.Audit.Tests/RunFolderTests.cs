@@ -16,7 +16,7 @@ public sealed class RunFolderTests(ITestOutputHelper output)
     private readonly ITestOutputHelper _output = output;
 
     internal static string Train(string scheme, int days, int stepsPerRound = 96, LocalOptimiser optimiser = LocalOptimiser.Adam, double? learningRate = null,
-        IProjectionInputsForm? projectionForm = null)
+        IProjectionInputsForm? projectionForm = null, bool maskUploads = false)
     {
         string dir = Directory.CreateTempSubdirectory($"fedgrid-audit-{scheme}-").FullName;
         Scenario scenario = DefaultScenario.Create(DefaultScenario.DefaultSeed, days);
@@ -28,7 +28,7 @@ public sealed class RunFolderTests(ITestOutputHelper output)
         };
         var run = new InProcessFederation(scenario, new FederatedRunOptions
         {
-            Scheme = FederationSchemes.FromName(scheme),
+            Scheme = FederationSchemes.FromName(scheme, maskUploads: maskUploads),
             Federation = fed, ProjectionForm = projectionForm,
             TranscriptPath = Path.Combine(dir, RunFolderReader.TranscriptName), GroundTruthPath = Path.Combine(dir, GroundTruthWriter.FileName),
         });
@@ -139,6 +139,30 @@ public sealed class RunFolderTests(ITestOutputHelper output)
         ChannelSummary[] ps = [.. card.Summaries.Where(s => s.Channel == Channel.PartialSums)];
         Assert.NotEmpty(ps);
         Assert.All(ps, s => Assert.True(s.ExposureRatio >= 0.95, $"{s.Attack} {s.Quantity}: {s.ExposureRatio}"));
+    }
+
+    [Fact]
+    public void Masked_uploads_leave_the_uploads_channel_not_observable()
+    {
+        // The upload attack's best case (one local SGD sample per round, the setting in which it recovers the trained state
+        // exactly under plain uploads): with the uploads masked the coordinator holds only each round's sum, so the channel
+        // yields nothing — exposureRatio at least 0.95 (the prior), as for masked partial sums, and reported as not observable.
+        string scheme = FedGrid.Federation.Privacy.MaskedSumsScheme.SchemeName;
+        double Exposure(bool mask, out AttackResults results, out AuditRun run)
+        {
+            string dir = Train(scheme, 1, stepsPerRound: 1, optimiser: LocalOptimiser.Sgd, learningRate: 3e-2, maskUploads: mask);
+            run = RunFolderReader.Load(dir);
+            results = Auditor.Attack(run.View);
+            ScoreCard card = Scorer.Score(run.View, results, run.Truth!);
+            return card.Summaries.Where(s => s.Channel == Channel.Uploads).Min(s => s.ExposureRatio);
+        }
+        double clear = Exposure(false, out _, out _);
+        Assert.True(clear < 0.5, $"without masked uploads the attack should work: exposure {clear}");
+        double masked = Exposure(true, out AttackResults r, out AuditRun view);
+        Assert.All(view.View.Households, h => Assert.All(h.Rounds.Take(95), o => { Assert.True(o.MaskedUpload); Assert.Empty(o.Updates); }));
+        Assert.True(masked >= 0.95, $"uploads exposure {masked}");
+        Assert.Contains(r.Notes, n => n.Contains("uploads: not observable for 32 household(s) with masked uploads", StringComparison.Ordinal));
+        Assert.All(r.Identifiability.Where(i => i.Channel == Channel.Uploads), i => Assert.StartsWith("not observable", i.Note, StringComparison.Ordinal));
     }
 
     [Fact]

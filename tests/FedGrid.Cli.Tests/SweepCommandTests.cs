@@ -55,6 +55,21 @@ public sealed class SweepCommandTests
     }
 
     [Fact]
+    public void Mask_uploads_and_delta_are_checked_before_any_run_and_parsed()
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-sweep-bad-" + Guid.NewGuid().ToString("N"));
+        var e1 = Assert.Throws<UserInputException>(() => SweepCommand.Run("plain,dp", null, 1, dir, true, TextWriter.Null, TextWriter.Null, maskUploads: true));
+        Assert.Contains("--mask-uploads: none of the schemes (plain,dp) masks", e1.Message);
+        var e2 = Assert.Throws<UserInputException>(() => SweepCommand.Run("dp", null, 1, dir, true, TextWriter.Null, TextWriter.Null, delta: 1));
+        Assert.Contains("--delta must lie strictly between 0 and 1, got 1", e2.Message);
+        Assert.False(Directory.Exists(Path.Combine(dir, "dp")));
+        System.CommandLine.ParseResult parsed = Verbs.All().Single(c => c.Name == "sweep").Parse("--scheme masked-sums --mask-uploads --delta 1e-3");
+        Assert.Empty(parsed.Errors);
+        Assert.True(parsed.GetValue<bool>("--mask-uploads"));
+        Assert.Equal(1e-3, parsed.GetValue<double?>("--delta"));
+    }
+
+    [Fact]
     public void Without_scheme_the_sweep_covers_every_scheme_of_the_train_verb()
     {
         System.CommandLine.Command sweep = Verbs.All().Single(c => c.Name == "sweep");

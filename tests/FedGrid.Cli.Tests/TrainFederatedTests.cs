@@ -101,7 +101,7 @@ public class TrainFederatedTests
     [Fact]
     public void Privacy_and_aggregation_options_are_checked_with_clear_errors()
     {
-        Bad(new FederatedTrainOptions("plain", NoiseMultiplier: 1), "--noise-multiplier, --clip-norm and --upload-clip-norm need --scheme dp or dp-masked-sums; 'plain' adds no noise");
+        Bad(new FederatedTrainOptions("plain", NoiseMultiplier: 1), "--noise-multiplier, --clip-norm, --upload-clip-norm and --delta need --scheme dp or dp-masked-sums; 'plain' adds no noise");
         Bad(new FederatedTrainOptions("masked-sums", ClipNorm: 1), "need --scheme dp or dp-masked-sums; 'masked-sums'");
         Bad(new FederatedTrainOptions("dp", NoiseMultiplier: 0), "--noise-multiplier must be positive and finite, got 0");
         Bad(new FederatedTrainOptions("dp", NoiseMultiplier: double.NaN), "--noise-multiplier must be positive and finite");
@@ -112,6 +112,48 @@ public class TrainFederatedTests
         Bad(new FederatedTrainOptions(Aggregation: "trimmed-mean", TrimFraction: 0.5), "--trim-fraction must lie in [0, 0.5), got 0.5");
         Bad(new FederatedTrainOptions(NoiseMultiplier: 1), "need --mode federated", mode: "centralized");
         Bad(new FederatedTrainOptions(Aggregation: "median"), "need --mode federated", mode: "centralized");
+    }
+
+    [Fact]
+    public void Mask_uploads_and_delta_are_checked_with_clear_errors()
+    {
+        Bad(new FederatedTrainOptions("plain", MaskUploads: true), "--mask-uploads needs the pairwise masks of scheme masked-sums or dp-masked-sums; scheme 'plain' has none");
+        Bad(new FederatedTrainOptions("private-columns", MaskUploads: true), "scheme 'private-columns' has none");
+        Bad(new FederatedTrainOptions("dp", MaskUploads: true), "scheme 'dp' has none");
+        Bad(new FederatedTrainOptions("masked-sums", Aggregation: "median", MaskUploads: true), "--mask-uploads cannot be combined with --aggregation median");
+        Bad(new FederatedTrainOptions("dp-masked-sums", Aggregation: "trimmed-mean", MaskUploads: true), "--mask-uploads cannot be combined with --aggregation trimmed-mean");
+        Bad(new FederatedTrainOptions(MaskUploads: true), "need --mode federated", mode: "centralized");
+        Bad(new FederatedTrainOptions("dp", Delta: 0), "--delta must lie strictly between 0 and 1, got 0");
+        Bad(new FederatedTrainOptions("dp", Delta: 1), "--delta must lie strictly between 0 and 1, got 1");
+        Bad(new FederatedTrainOptions("dp-masked-sums", Delta: double.NaN), "--delta must lie strictly between 0 and 1, got NaN");
+        Bad(new FederatedTrainOptions("masked-sums", Delta: 1e-3), "--delta need --scheme dp or dp-masked-sums; 'masked-sums' adds no noise");
+        Bad(new FederatedTrainOptions(Delta: 1e-3), "need --mode federated", mode: "centralized");
+    }
+
+    [Fact]
+    public void Dp_over_masked_sums_with_masked_uploads_and_a_given_delta_reports_that_delta()
+    {
+        string dir = Path.Combine(Path.GetTempPath(), "fedgrid-trainfed-mu-" + Guid.NewGuid().ToString("N"));
+        var stdout = new StringWriter();
+        int code = TrainCommand.Run(new TrainOptions("federated", "actor-critic", Days: 1, OutDir: dir, Json: true,
+            Federated: new FederatedTrainOptions("dp-masked-sums", NoiseMultiplier: 4, MaskUploads: true, Delta: 1e-3)), stdout, new StringWriter());
+        try
+        {
+            Assert.Equal(0, code);
+            using var doc = JsonDocument.Parse(stdout.ToString());
+            JsonElement root = doc.RootElement;
+            Assert.True(root.GetProperty("maskUploads").GetBoolean());
+            Assert.Equal(1e-3, root.GetProperty("delta").GetDouble());
+            // As in the test above (2·(96 + 1) releases at z = 4, ρ = 194/32), with ln(1/δ) = ln(1000): the continuous
+            // minimum ρ + 2√(ρ ln(1/δ)) (Bun & Steinke 2016, Prop. 1.3); the accountant's grid of orders is at or a little above it.
+            double rho = 194 / 32.0, best = rho + (2 * Math.Sqrt(rho * Math.Log(1e3)));
+            Assert.InRange(root.GetProperty("epsilon").GetDouble(), best * 0.9999, best * 1.02);
+            using var reader = TranscriptReader.Open(Path.Combine(dir, "transcript.fgt"));
+            var uploads = reader.Records(RecordKind.Upload).Select(r => r.Received!.Upload).ToList();
+            Assert.Equal(32, uploads.Count);
+            Assert.All(uploads, u => { Assert.Empty(u.ActorParameters); Assert.NotEmpty(u.MaskedParameters); Assert.Equal(0, u.SampleCount); });
+        }
+        finally { Directory.Delete(dir, true); }
     }
 
     [Fact]

@@ -188,12 +188,28 @@ public static class UploadRatioAttack
         ArgumentNullException.ThrowIfNull(view);
         ArgumentNullException.ThrowIfNull(options);
         int n = view.FeatureCount, T = view.SlotCount;
-        int attacked = 0;
+        int attacked = 0, masked = 0;
         var known = new double[n];
         for (int m = 0; m < view.Households.Count; m++)
         {
             HouseholdView h = view.Households[m];
-            if (!h.Rounds.Any(r => r.Updates.Count > 0)) continue;
+            if (!h.Rounds.Any(r => r.Updates.Count > 0))
+            {
+                if (h.Rounds.Any(r => r.MaskedUpload))
+                {
+                    // Masked uploads: like masked partial sums, the channel yields nothing of this household; the attacker keeps its prior.
+                    masked++;
+                    foreach (Quantity q in AuditNames.Quantities)
+                    {
+                        if (view.FeatureIndex(q) < 0) continue;
+                        var (pe, pv) = AttackPrior.Fallback(view, options, m, q);
+                        reconstructions.Add(new Reconstruction(Channel.Uploads, Name, q, m, pe, pv));
+                    }
+                    identifiability.Add(new Identifiability(m, Channel.Uploads, Name, 0, n, double.NaN, double.NaN,
+                        $"not observable: {h.Rounds.Count(r => r.MaskedUpload)} round(s) of masked uploads (ring words whose masks cancel only in the round's sum); no individual update to invert, the prior is kept"));
+                }
+                continue;
+            }
             attacked++;
             var est = new Dictionary<Quantity, (double[] E, double[] V)>();
             foreach (Quantity q in AuditNames.Quantities)
@@ -260,7 +276,9 @@ public static class UploadRatioAttack
                 + (signRounds > 0 ? $"; {signRounds} round(s) with sign-like updates (an adaptive optimiser's first step) keep the prior" : "")
                 + (implausible > 0 ? $"; {implausible} round-feature estimate(s) implausible against the prior (not a plain gradient step) keep the prior" : "")));
         }
-        if (attacked == 0)
+        if (masked > 0)
+            notes.Add($"uploads: not observable for {masked} household(s) with masked uploads — the coordinator holds only each round's sum over the participants, so the weight/bias ratio attack keeps the prior there");
+        if (attacked == 0 && masked == 0)
             notes.Add("uploads: no household uploaded its first-layer block (e.g. private columns), so the weight/bias ratio attack had nothing to work on");
     }
 }

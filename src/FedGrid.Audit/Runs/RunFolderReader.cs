@@ -209,6 +209,7 @@ public static class RunFolderReader
             var roundWeights = new Dictionary<(int M, int R), double[]?>();
             var roundBias = new Dictionary<int, (double[] A, double[] C)>();
             var uploads = new Dictionary<(int M, int R), (FirstLayerUpdate[] U, int Samples)>();
+            var maskedUploads = new HashSet<(int M, int R)>();
             long maxStep = -1;
             // Bus-aggregate shares: per bus, per step, the running sum mod 2^64 and the number of shares in it.
             var busMembers = new Dictionary<string, int>(StringComparer.Ordinal);
@@ -308,6 +309,8 @@ public static class RunFolderReader
                         int m = r.Received.HouseholdIndex;
                         ParameterUpload up = r.Received.Upload;
                         if (m < 0 || m >= M) break;
+                        // Masked uploads: ring words whose masks cancel only in the round's sum; nothing individual to read.
+                        if (up.MaskedParameters.Count > 0) { maskedUploads.Add((m, up.Round)); break; }
                         if (up.Scope != ParameterScope.OwnColumnsAndShared || wa[m] is null || !roundBias.TryGetValue(up.Round, out var bias)) break;
                         double[] newA = ToDouble(up.ActorParameters, 0, ha * n), newC = ToDouble(up.CriticParameters, 0, hc * n);
                         double[] upBiasA = ToDouble(up.ActorParameters, ha * n, ha), upBiasC = ToDouble(up.CriticParameters, hc * n, hc);
@@ -359,7 +362,7 @@ public static class RunFolderReader
                     d.Rounds[m].Add(new RoundObservation
                     {
                         StartSlot = r * d.StepsPerRound, SlotCount = Math.Min(d.StepsPerRound, T - r * d.StepsPerRound), BroadcastWeights = w,
-                        Updates = u.U ?? [], LocalSamples = u.Samples,
+                        Updates = u.U ?? [], LocalSamples = u.Samples, MaskedUpload = maskedUploads.Contains((m, r)),
                         // The household trains on rows [0, Count − 1) of its buffer, whose row 0 is the previous round's last step:
                         // the samples are the slots just before the round's last one.
                         TrainingStartSlot = u.U is null ? -1 : Math.Max(0, r * d.StepsPerRound + Math.Min(d.StepsPerRound, T - r * d.StepsPerRound) - 1 - u.Samples),

@@ -21,8 +21,10 @@ namespace FedGrid.Cli.Commands;
 /// <param name="PartialSumsExposureRatio">Base load, partial-sums channel: the lowest exposure ratio over households and attacks, or null.</param>
 /// <param name="UploadsExposureRatio">Base load, uploads channel: the lowest exposure ratio over households and attacks, or null.</param>
 /// <param name="Folder">Run folder.</param>
+/// <param name="Delta">δ of the run's (ε, δ), or null where no DP is applied.</param>
+/// <param name="MaskUploads">Whether the run masked its uploads.</param>
 internal sealed record SweepRow(string Scheme, double? NoiseMultiplier, double? Epsilon, double? SavingsCapturedPct, long ViolationSlots,
-    double? PartialSumsExposureRatio, double? UploadsExposureRatio, string Folder);
+    double? PartialSumsExposureRatio, double? UploadsExposureRatio, string Folder, double? Delta = null, bool MaskUploads = false);
 
 /// <summary>
 /// <c>fedgrid sweep --scheme S[,S…] [--noise LIST] [--days N] [--out DIR] [--json]</c>: trains (the train verb's federated
@@ -44,17 +46,22 @@ internal static class SweepCommand
         var days = new Option<int>("--days") { Description = $"training days of every run (default {DefaultDays})", DefaultValueFactory = _ => DefaultDays };
         var outDir = new Option<string?>("--out") { Description = "sweep folder (default runs/sweep-<days>d); one run folder per combination inside" };
         var json = new Option<bool>("--json") { Description = "print only the rows as a JSON array on stdout" };
+        var maskUploads = new Option<bool>("--mask-uploads") { Description = $"mask the uploads of the {MaskedSumsScheme.SchemeName} and {DifferentiallyPrivateScheme.MaskedSchemeName} runs too (the train verb's --mask-uploads; other schemes run as usual)" };
+        var delta = new Option<double?>("--delta") { Description = $"δ of the dp runs' (ε, δ), in (0, 1) (default {DifferentialPrivacySettings.DefaultDelta}; other schemes ignore it)" };
         var cmd = new Command("sweep", "Train and audit every scheme × noise combination; write a table and a privacy–utility plot (exposure of the most exposed household vs savings captured).")
         {
-            schemes, noise, days, outDir, json,
+            schemes, noise, days, outDir, json, maskUploads, delta,
         };
-        cmd.SetAction(parse => Run(parse.GetValue(schemes)!, parse.GetValue(noise), parse.GetValue(days), parse.GetValue(outDir), parse.GetValue(json), Console.Out, Console.Error));
+        cmd.SetAction(parse => Run(parse.GetValue(schemes)!, parse.GetValue(noise), parse.GetValue(days), parse.GetValue(outDir), parse.GetValue(json), Console.Out, Console.Error,
+            parse.GetValue(maskUploads), parse.GetValue(delta)));
         return cmd;
     }
 
     /// <summary>Parses the lists, runs every combination, writes the table and the plot; returns the exit code.</summary>
-    public static int Run(string schemeList, string? noiseList, int days, string? outDir, bool asJson, TextWriter stdout, TextWriter progress)
+    public static int Run(string schemeList, string? noiseList, int days, string? outDir, bool asJson, TextWriter stdout, TextWriter progress,
+        bool maskUploads = false, double? delta = null)
     {
+        if (delta is { } dl && !(dl > 0 && dl < 1)) throw new UserInputException($"--delta must lie strictly between 0 and 1, got {dl}");
         string[] schemes = schemeList.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries);
         if (schemes.Length == 0) throw new UserInputException("--scheme: give at least one scheme");
         double[] noises = ParseNoise(noiseList);
@@ -71,13 +78,16 @@ internal static class SweepCommand
             throw new UserInputException($"--out: cannot create the sweep folder '{dir}': {e.Message}");
         }
         // Every option is checked by the train verb itself before any run starts.
-        foreach (var (s, z) in combos) TrainFederated.Validate(Options(s, z, days, dir));
+        if (maskUploads && !combos.Any(c => FederationSchemes.CanMaskUploads(c.Scheme)))
+            throw new UserInputException($"--mask-uploads: none of the schemes ({string.Join(",", schemes)}) masks; it applies to {MaskedSumsScheme.SchemeName} and {DifferentiallyPrivateScheme.MaskedSchemeName}");
+        TrainOptions Options(string scheme, double? noise) => SweepCommand.Options(scheme, noise, days, dir, maskUploads, delta);
+        foreach (var (s, z) in combos) TrainFederated.Validate(Options(s, z));
         var rows = new List<SweepRow>();
         for (int i = 0; i < combos.Count; i++)
         {
             var (s, z) = combos[i];
-            TrainOptions o = Options(s, z, days, dir);
-            progress.WriteLine($"sweep: run {i + 1}/{combos.Count}: {Label(s, z)}");
+            TrainOptions o = Options(s, z);
+            progress.WriteLine($"sweep: run {i + 1}/{combos.Count}: {Path.GetFileName(o.OutDir)}");
             var captured = new StringWriter();
             int code = TrainCommand.Run(o, captured, progress);
             if (code != CliRunner.ExitOk) return code;
@@ -85,7 +95,8 @@ internal static class SweepCommand
             (AuditRun run, AttackResults results, ScoreCard? card) = AuditCommand.Audit(o.OutDir!, priors: true, meter: false, gradientMatching: null, progress);
             AuditCommand.WriteFiles(o.OutDir!, run, results, card, writeReport: true, progress);
             rows.Add(new SweepRow(s, z ?? Number(summary.RootElement, "noiseMultiplier"), Number(summary.RootElement, "epsilon"), Number(summary.RootElement, "savingsCapturedPct"),
-                summary.RootElement.GetProperty("violationSlots").GetInt64(), LowestExposure(card, Channel.PartialSums), LowestExposure(card, Channel.Uploads), o.OutDir!));
+                summary.RootElement.GetProperty("violationSlots").GetInt64(), LowestExposure(card, Channel.PartialSums), LowestExposure(card, Channel.Uploads), o.OutDir!,
+                Number(summary.RootElement, "delta"), o.Federated!.MaskUploads));
         }
         File.WriteAllText(Path.Combine(dir, "sweep.csv"), Csv(rows));
         File.WriteAllText(Path.Combine(dir, "sweep.md"), Markdown(rows, days));
@@ -120,12 +131,16 @@ internal static class SweepCommand
         return values.Distinct().ToArray();
     }
 
-    private static TrainOptions Options(string scheme, double? noise, int days, string dir) =>
-        new(TrainFederated.Mode, "actor-critic", Days: days, OutDir: Path.Combine(dir, Label(scheme, noise)), Json: true,
-            Federated: new FederatedTrainOptions(scheme, NoiseMultiplier: noise));
+    private static TrainOptions Options(string scheme, double? noise, int days, string dir, bool maskUploads, double? delta)
+    {
+        bool masked = maskUploads && FederationSchemes.CanMaskUploads(scheme);
+        bool dp = FederationSchemes.IsDifferentiallyPrivate(scheme);
+        return new(TrainFederated.Mode, "actor-critic", Days: days, OutDir: Path.Combine(dir, Label(scheme, noise, masked)), Json: true,
+            Federated: new FederatedTrainOptions(scheme, NoiseMultiplier: noise, MaskUploads: masked, Delta: dp ? delta : null));
+    }
 
-    private static string Label(string scheme, double? noise) =>
-        noise is { } z ? string.Create(CultureInfo.InvariantCulture, $"{scheme}-z{z:G4}") : scheme;
+    private static string Label(string scheme, double? noise, bool maskUploads) =>
+        (noise is { } z ? string.Create(CultureInfo.InvariantCulture, $"{scheme}-z{z:G4}") : scheme) + (maskUploads ? "-masked-uploads" : "");
 
     private static double? Number(JsonElement e, string name) =>
         e.TryGetProperty(name, out JsonElement v) && v.ValueKind == JsonValueKind.Number ? v.GetDouble() : null;
@@ -158,7 +173,7 @@ internal static class SweepCommand
         sb.AppendLine("| scheme | noise z | ε | savings captured % | violation slots | partial-sums exposure | uploads exposure |");
         sb.AppendLine("|---|---:|---:|---:|---:|---:|---:|");
         foreach (SweepRow r in rows)
-            sb.AppendLine(CultureInfo.InvariantCulture, $"| {r.Scheme} | {Dash(r.NoiseMultiplier)} | {Dash(r.Epsilon)} | {Dash(r.SavingsCapturedPct, "0.0")} | {r.ViolationSlots} | {Dash(r.PartialSumsExposureRatio, "G3")} | {Dash(r.UploadsExposureRatio, "G3")} |");
+            sb.AppendLine(CultureInfo.InvariantCulture, $"| {r.Scheme}{(r.MaskUploads ? " (masked uploads)" : "")} | {Dash(r.NoiseMultiplier)} | {Dash(r.Epsilon)} | {Dash(r.SavingsCapturedPct, "0.0")} | {r.ViolationSlots} | {Dash(r.PartialSumsExposureRatio, "G3")} | {Dash(r.UploadsExposureRatio, "G3")} |");
         return sb.ToString();
     }
 
@@ -204,6 +219,8 @@ internal static class SweepCommand
                 w.WriteString("scheme", r.Scheme);
                 Nullable(w, "noiseMultiplier", r.NoiseMultiplier);
                 Nullable(w, "epsilon", r.Epsilon);
+                Nullable(w, "delta", r.Delta);
+                w.WriteBoolean("maskUploads", r.MaskUploads);
                 Nullable(w, "savingsCapturedPct", r.SavingsCapturedPct);
                 w.WriteNumber("violationSlots", r.ViolationSlots);
                 Nullable(w, "partialSumsExposureRatio", r.PartialSumsExposureRatio);

@@ -21,9 +21,11 @@ namespace FedGrid.Cli.Commands;
 /// <param name="UploadClipNorm">Clipping norm of each upload update under DP, or null for the default.</param>
 /// <param name="Aggregation">Averaging rule of the uploads ("mean", "median", "trimmed-mean"), or null for mean.</param>
 /// <param name="TrimFraction">Fraction trimmed from each end by the trimmed mean, or null for the default.</param>
+/// <param name="MaskUploads">Mask the uploads too (masked-sums and dp-masked-sums with the mean only).</param>
+/// <param name="Delta">δ of the DP schemes' (ε, δ) guarantee, or null for the default 1e-5.</param>
 internal sealed record FederatedTrainOptions(string? Scheme = null, double? Participation = null, int? MinQuorum = null, int? StepsPerRound = null,
     string? ProjectionInputs = null, double? NoiseMultiplier = null, double? ClipNorm = null, double? UploadClipNorm = null,
-    string? Aggregation = null, double? TrimFraction = null);
+    string? Aggregation = null, double? TrimFraction = null, bool MaskUploads = false, double? Delta = null);
 
 /// <summary>
 /// The federated mode of <c>fedgrid train</c>: the protocol of <see cref="InProcessFederation"/> in one process, with the
@@ -69,9 +71,14 @@ internal static class TrainFederated
         };
         var aggregation = new Option<string?>("--aggregation") { Description = "federated mode: averaging of the uploads: mean (default, FedAvg), median (coordinate-wise) or trimmed-mean (coordinate-wise)" };
         var trim = new Option<double?>("--trim-fraction") { Description = $"--aggregation trimmed-mean: fraction dropped from each end per coordinate, in [0, 0.5) (default {UploadAggregators.DefaultTrimFraction})" };
-        return ([scheme, participation, quorum, round, inputs, noise, clip, uploadClip, aggregation, trim],
+        var maskUploads = new Option<bool>("--mask-uploads")
+        {
+            Description = $"{MaskedSumsScheme.SchemeName} and {DifferentiallyPrivateScheme.MaskedSchemeName}: mask each round's uploads too (fixed point in Z/2^64, pairwise masks); the coordinator learns only their sum (FedAvg; not with --aggregation median or trimmed-mean)",
+        };
+        var delta = new Option<double?>("--delta") { Description = $"dp schemes: δ of the reported (ε, δ) guarantee, in (0, 1) (default {DifferentialPrivacySettings.DefaultDelta})" };
+        return ([scheme, participation, quorum, round, inputs, noise, clip, uploadClip, aggregation, trim, maskUploads, delta],
             p => new FederatedTrainOptions(p.GetValue(scheme), p.GetValue(participation), p.GetValue(quorum), p.GetValue(round), p.GetValue(inputs),
-                p.GetValue(noise), p.GetValue(clip), p.GetValue(uploadClip), p.GetValue(aggregation), p.GetValue(trim)));
+                p.GetValue(noise), p.GetValue(clip), p.GetValue(uploadClip), p.GetValue(aggregation), p.GetValue(trim), p.GetValue(maskUploads), p.GetValue(delta)));
     }
 
     public static string ModeLabel(TrainOptions options) =>
@@ -83,7 +90,7 @@ internal static class TrainFederated
         if (options.Mode != Mode)
         {
             if (f != new FederatedTrainOptions())
-                throw new UserInputException("--scheme, --participation, --min-quorum, --steps-per-round, --projection-inputs, --noise-multiplier, --clip-norm, --upload-clip-norm, --aggregation and --trim-fraction need --mode federated");
+                throw new UserInputException("--scheme, --participation, --min-quorum, --steps-per-round, --projection-inputs, --noise-multiplier, --clip-norm, --upload-clip-norm, --delta, --aggregation, --trim-fraction and --mask-uploads need --mode federated");
             return;
         }
         if (options.Learner != "actor-critic")
@@ -91,16 +98,26 @@ internal static class TrainFederated
         string scheme = f.Scheme ?? ClearScheme.PlainName;
         if (!FederationSchemes.Names.Contains(scheme))
             throw new UserInputException($"--scheme: unknown scheme '{scheme}'; use {FederationSchemes.NameList()}");
-        if (!FederationSchemes.IsDifferentiallyPrivate(scheme) && (f.NoiseMultiplier is not null || f.ClipNorm is not null || f.UploadClipNorm is not null))
-            throw new UserInputException($"--noise-multiplier, --clip-norm and --upload-clip-norm need --scheme {DifferentiallyPrivateScheme.SchemeName} or {DifferentiallyPrivateScheme.MaskedSchemeName}; '{scheme}' adds no noise");
+        if (!FederationSchemes.IsDifferentiallyPrivate(scheme) && (f.NoiseMultiplier is not null || f.ClipNorm is not null || f.UploadClipNorm is not null || f.Delta is not null))
+            throw new UserInputException($"--noise-multiplier, --clip-norm, --upload-clip-norm and --delta need --scheme {DifferentiallyPrivateScheme.SchemeName} or {DifferentiallyPrivateScheme.MaskedSchemeName}; '{scheme}' adds no noise");
         if (f.NoiseMultiplier is { } z && !(z > 0 && double.IsFinite(z)))
             throw new UserInputException($"--noise-multiplier must be positive and finite, got {z} (for no noise use {ClearScheme.PrivateColumnsName})");
         if (f.ClipNorm is { } cn && !(cn > 0 && double.IsFinite(cn)))
             throw new UserInputException($"--clip-norm must be positive and finite, got {cn}");
         if (f.UploadClipNorm is { } un && !(un > 0 && double.IsFinite(un)))
             throw new UserInputException($"--upload-clip-norm must be positive and finite, got {un}");
+        if (f.Delta is { } dl && !(dl > 0 && dl < 1))
+            throw new UserInputException($"--delta must lie strictly between 0 and 1, got {dl}");
         if (f.Aggregation is not null && Aggregations.All(a => a.Key != f.Aggregation))
             throw new UserInputException($"--aggregation: unknown rule '{f.Aggregation}'; use {AggregationList}");
+        try
+        {
+            FederationSchemes.CheckMaskUploads(scheme, f.MaskUploads, Aggregations.First(a => a.Key == (f.Aggregation ?? Aggregations[0].Key)).Value);
+        }
+        catch (ArgumentException e)
+        {
+            throw new UserInputException(e.Message);
+        }
         if (f.TrimFraction is { } b)
         {
             if (f.Aggregation != TrimmedMeanAggregator.RuleName)
@@ -122,7 +139,8 @@ internal static class TrainFederated
     private static DifferentialPrivacySettings Privacy(FederatedTrainOptions f) => new(
         f.NoiseMultiplier ?? DifferentialPrivacySettings.DefaultNoiseMultiplier,
         f.ClipNorm ?? DifferentialPrivacySettings.DefaultClipNorm,
-        f.UploadClipNorm ?? DifferentialPrivacySettings.DefaultUploadClipNorm);
+        f.UploadClipNorm ?? DifferentialPrivacySettings.DefaultUploadClipNorm,
+        f.Delta ?? DifferentialPrivacySettings.DefaultDelta);
 
     public static TrainOutcome Run(TrainContext c)
     {
@@ -135,7 +153,7 @@ internal static class TrainFederated
         string aggregation = f.Aggregation ?? Aggregations[0].Key;
         string rule = Aggregations.First(a => a.Key == aggregation).Value;
         double trim = f.TrimFraction ?? UploadAggregators.DefaultTrimFraction;
-        IFederationScheme scheme = FederationSchemes.FromName(f.Scheme ?? ClearScheme.PlainName, () => UploadAggregators.Create(rule, trim), Privacy(f));
+        IFederationScheme scheme = FederationSchemes.FromName(f.Scheme ?? ClearScheme.PlainName, () => UploadAggregators.Create(rule, trim), Privacy(f), f.MaskUploads);
         // The centralized actor-critic's settings, seed and warm start (the price rule acts on the first days, then each
         // household clones it on its own rows): the same budget and starting point.
         int warmDays = Math.Min(days, c.WarmStartDays ?? TrainingDefaults.WarmStartDays);
@@ -178,6 +196,7 @@ internal static class TrainFederated
                 new("bytesPerHouseholdPerStep", Math.Round(r.BytesPerHouseholdPerStep, 1)),
                 new("aggregation", aggregation),
                 new("warmStartDays", warmDays),
+                new("maskUploads", f.MaskUploads),
         };
         if (rule == TrimmedMeanAggregator.RuleName) extra.Add(new("trimFraction", trim));
         PrivacyGuarantee? dp = null;

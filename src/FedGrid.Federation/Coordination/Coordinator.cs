@@ -22,6 +22,8 @@ public enum CoordinatorPhase
     CollectingRecoveryShares,
     /// <summary>Collecting the round's uploads from the selected households.</summary>
     CollectingUploads,
+    /// <summary>Masked uploads after the upload deadline: collecting the uploaders' shares of the missing participants' mask keys.</summary>
+    CollectingUploadRecoveryShares,
     /// <summary>The run was ended with <see cref="Coordinator.Finish"/>.</summary>
     Finished,
 }
@@ -82,6 +84,7 @@ public sealed class Coordinator
     private readonly RegisteredHousehold?[] _registered;
     private readonly bool[] _stepSeen, _projectionSeen, _selected, _dropped, _recoverySeen;
     private readonly ICoordinatorSchemeMessages? _schemeMessages;
+    private readonly IMaskedUploads? _maskedUploads;
     private readonly Action<CoordinatorMessage> _schemeSend;
     private ICoordinatorOutbox? _schemeOutbox;
     private int _droppedCount, _recoveryCount, _recoveryExpected;
@@ -127,6 +130,8 @@ public sealed class Coordinator
         }
         _scheme = setup.Scheme.CreateCoordinatorSide(_m, ActorShape.FirstLayerSize, CriticShape.FirstLayerSize);
         _schemeMessages = _scheme as ICoordinatorSchemeMessages;
+        _maskedUploads = _scheme.MaskedUploads;
+        _maskedUploads?.Configure(UploadLayout.Of(_actor, _m, ActorShape.OutputSize / _m), UploadLayout.Of(_critic, _m, CriticShape.OutputSize / _m));
         _schemeSend = m => Send(_schemeOutbox!, m, -1);
         _registered = new RegisteredHousehold?[_m];
         _dropped = new bool[_m];
@@ -200,6 +205,9 @@ public sealed class Coordinator
     /// <summary>Whether a decision step is open: some of its messages arrived and others are awaited (<see cref="CloseStep"/> applies).</summary>
     public bool StepOpen => Phase is CoordinatorPhase.CollectingProjectionInputs or CoordinatorPhase.CollectingRecoveryShares
         || (Phase == CoordinatorPhase.CollectingPartialSums && _stepCount > 0);
+
+    /// <summary>Whether the scheme masks the uploads (the coordinator sees only their sum).</summary>
+    public bool MasksUploads => _maskedUploads is not null;
 
     /// <summary>Whether household m is dropped (out of the current round, until it rejoins).</summary>
     /// <param name="household">m.</param>
@@ -304,11 +312,75 @@ public sealed class Coordinator
     public void CloseRound(ICoordinatorOutbox outbox)
     {
         ArgumentNullException.ThrowIfNull(outbox);
+        if (Phase == CoordinatorPhase.CollectingUploadRecoveryShares)
+        {
+            // The recovery deadline: uploaders that did not reveal their shares are out too (their uploads stay in the sum).
+            var silent = new List<int>();
+            for (int h = 0; h < _m; h++)
+            {
+                if (_uploads[h] is not null && !_recoverySeen[h])
+                {
+                    silent.Add(h);
+                }
+            }
+            DropFromRound(silent, $"{silent.Count} uploaders sent no recovery shares before the deadline of round {_round}; their uploads are in the round's sum; out until they rejoin with fresh keys");
+            Aggregate(outbox);
+            return;
+        }
         if (Phase != CoordinatorPhase.CollectingUploads)
         {
             throw new ProtocolException($"no round is collecting uploads (phase {Phase})");
         }
+        if (_maskedUploads is not null && _uploadCount > 0 && _uploadCount < _selectedCount)
+        {
+            var missing = new List<int>();
+            for (int h = 0; h < _m; h++)
+            {
+                if (_selected[h] && _uploads[h] is null)
+                {
+                    missing.Add(h);
+                }
+            }
+            // A missing participant's masks are in the others' uploads: it is out of the round and, once its key is
+            // rebuilt, of the masks; it comes back with fresh keys.
+            DropFromRound(missing, $"{missing.Count} participants sent no masked upload before the deadline of round {_round}; out until they rejoin with fresh keys");
+            IReadOnlyList<int> needed = _maskedUploads.SharesNeeded(missing, _uploadCount);
+            if (needed.Count > 0)
+            {
+                Array.Clear(_recoverySeen);
+                _recoveryCount = 0;
+                _recoveryExpected = _uploadCount;
+                Phase = CoordinatorPhase.CollectingUploadRecoveryShares;
+                for (int h = 0; h < _m; h++)
+                {
+                    if (_uploads[h] is not null)
+                    {
+                        var request = new RecoveryRequest { Round = _round, Step = -1 };
+                        request.Dropped.AddRange(needed);
+                        Send(outbox, new CoordinatorMessage { HouseholdIndex = h, RecoveryRequest = request }, -1);
+                    }
+                }
+                return;
+            }
+        }
         Aggregate(outbox);
+    }
+
+    private void DropFromRound(List<int> households, string detail)
+    {
+        if (households.Count == 0)
+        {
+            return;
+        }
+        foreach (int h in households)
+        {
+            if (!_dropped[h])
+            {
+                _dropped[h] = true;
+                _droppedCount++;
+            }
+        }
+        Event(EventKind.StepDropout, households, detail);
     }
 
     /// <summary>Ends the run: records completion and flushes the transcript.</summary>
@@ -406,6 +478,29 @@ public sealed class Coordinator
 
     private void OnRecoveryShares(int m, RecoveryShares shares, ICoordinatorOutbox outbox)
     {
+        if (Phase == CoordinatorPhase.CollectingUploadRecoveryShares)
+        {
+            if (shares.Round != _round || shares.Step != -1)
+            {
+                throw new ProtocolException($"recovery shares from household {m} for round {shares.Round} step {shares.Step}; the masked uploads of round {_round} (step -1) are recovering");
+            }
+            if (_uploads[m] is null)
+            {
+                throw new ProtocolException($"household {m} sent recovery shares but no masked upload in round {_round}");
+            }
+            if (_recoverySeen[m])
+            {
+                throw new ProtocolException($"household {m} sent its recovery shares twice in round {_round}");
+            }
+            _maskedUploads!.AddShares(m, shares);
+            _recoverySeen[m] = true;
+            _recoveryCount++;
+            if (_recoveryCount == _recoveryExpected)
+            {
+                Aggregate(outbox);
+            }
+            return;
+        }
         if (Phase != CoordinatorPhase.CollectingRecoveryShares)
         {
             throw new ProtocolException($"recovery shares from household {m} in phase {Phase}");
@@ -740,7 +835,12 @@ public sealed class Coordinator
         {
             if (!_dropped[h])
             {
-                Send(outbox, new CoordinatorMessage { HouseholdIndex = h, Training = new TrainingCall { Round = _round, Selected = _selected[h] } }, -1);
+                var call = new TrainingCall { Round = _round, Selected = _selected[h] };
+                if (_maskedUploads is not null && _selected[h])
+                {
+                    call.Participants.AddRange(chosen);
+                }
+                Send(outbox, new CoordinatorMessage { HouseholdIndex = h, Training = call }, -1);
             }
         }
         if (_selectedCount == 0)
@@ -767,9 +867,21 @@ public sealed class Coordinator
         {
             throw new ProtocolException($"household {m} uploaded twice in round {_round}");
         }
-        ParameterScope expected = _setup.Scheme.ColumnsCrossWire ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
-        int actorLength = _actorShared.Length + (_setup.Scheme.ColumnsCrossWire ? _actor.FirstLayerBlockRange(m).Length : 0);
-        int criticLength = _criticShared.Length + (_setup.Scheme.ColumnsCrossWire ? _critic.FirstLayerBlockRange(m).Length : 0);
+        if (_maskedUploads is not null)
+        {
+            _maskedUploads.Check(m, upload);
+            _uploads[m] = upload.Clone();
+            _uploadCount++;
+            if (_uploadCount == _selectedCount)
+            {
+                Aggregate(outbox);
+            }
+            return;
+        }
+        bool columnsUp = _setup.Scheme.ColumnsInUploads;
+        ParameterScope expected = columnsUp ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
+        int actorLength = _actorShared.Length + (columnsUp ? _actor.FirstLayerBlockRange(m).Length : 0);
+        int criticLength = _criticShared.Length + (columnsUp ? _critic.FirstLayerBlockRange(m).Length : 0);
         if (upload.Scope != expected || upload.ActorParameters.Count != actorLength || upload.CriticParameters.Count != criticLength)
         {
             throw new ProtocolException($"upload from household {m}: scope {upload.Scope} with {upload.ActorParameters.Count} + {upload.CriticParameters.Count} parameters; expected {expected} with {actorLength} + {criticLength}");
@@ -822,15 +934,42 @@ public sealed class Coordinator
             Event(EventKind.Dropout, missing, $"{missing.Count} selected households sent no upload in round {_round}");
         }
         var contributors = received.Select(r => r.Household).ToList();
-        bool ok = received.Count >= _setup.Options.MinQuorum && samples > 0;
-        if (ok)
+        bool summed = true;
+        string? failure = null;
+        if (_maskedUploads is not null && received.Count > 0)
+        {
+            // The coordinator sees only the sum: the averaged shared parameters and Σ n_k come out of it.
+            _actor.Parameters.Slice(_actor.SharedRange().Offset).CopyTo(_actorShared);
+            _critic.Parameters.Slice(_critic.SharedRange().Offset).CopyTo(_criticShared);
+            MaskedUploadsOutcome masked = _maskedUploads.Aggregate(_round, received, _selected, _actorShared, _criticShared);
+            samples = masked.Samples;
+            summed = masked.Sums.HasTotal;
+            if (masked.Sums.Recovered.Count > 0)
+            {
+                Event(EventKind.SumRecovered, masked.Sums.Recovered, masked.Sums.Detail ?? "masks of dropped participants removed");
+            }
+            if (!summed)
+            {
+                failure = masked.Sums.Detail ?? "no total of the masked uploads";
+                Event(EventKind.SumAbandoned, masked.Sums.Unrecovered, failure);
+            }
+        }
+        bool ok = summed && received.Count >= _setup.Options.MinQuorum && samples > 0;
+        if (ok && _maskedUploads is not null)
+        {
+            _actorShared.CopyTo(_actor.Parameters.Slice(_actor.SharedRange().Offset));
+            _criticShared.CopyTo(_critic.Parameters.Slice(_critic.SharedRange().Offset));
+            AggregatedRounds++;
+            Event(EventKind.RoundAggregated, contributors, $"{_setup.Scheme.Name}: the sum of {received.Count} masked uploads, {samples} samples");
+        }
+        else if (ok)
         {
             _scheme.AggregateUploads(received, _actorShared, _criticShared);
             _actorShared.CopyTo(_actor.Parameters.Slice(_actor.SharedRange().Offset));
             _criticShared.CopyTo(_critic.Parameters.Slice(_critic.SharedRange().Offset));
             // Parameters that one household alone trains (its output head; under plain also its first-layer columns)
             // take that household's uploaded value: the average over the households that train them.
-            bool columns = _setup.Scheme.ColumnsCrossWire;
+            bool columns = _setup.Scheme.ColumnsInUploads;
             foreach (ReceivedUpload r in received)
             {
                 CopyOwned(_actor, r.Household, r.Upload.ActorParameters, 2 * (ActorShape.OutputSize / (2 * _m)), columns);
@@ -842,7 +981,9 @@ public sealed class Coordinator
         else
         {
             FailedRounds++;
-            Event(EventKind.QuorumFailed, contributors, $"{received.Count} uploads ({samples} samples) below the quorum of {_setup.Options.MinQuorum}; model kept");
+            Event(EventKind.QuorumFailed, contributors, failure is not null
+                ? $"{received.Count} masked uploads without a total; model kept"
+                : $"{received.Count} uploads ({samples} samples) below the quorum of {_setup.Options.MinQuorum}; model kept");
         }
         int next = _round + 1;
         var model = new ModelBroadcast { Round = next, Scope = ParameterScope.Shared, Aggregated = ok };

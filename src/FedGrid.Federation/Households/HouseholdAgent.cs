@@ -1,3 +1,4 @@
+using FedGrid.Federation.Coordination;
 using FedGrid.Federation.Protocol;
 using FedGrid.Federation.Schemes;
 using FedGrid.Federation.Wire;
@@ -73,6 +74,7 @@ public sealed class HouseholdAgent
     private double _flexMin, _flexMax, _baseKw, _proposal, _setpoint, _demonstration = double.NaN;
     private int _pendingTrainingRound = -1;
     private bool _pendingSelected, _hasModel, _rejoining, _stepStored;
+    private float[] _heads = [];
     private readonly RejoinRequest _rejoin = new();
 
     /// <summary>Creates a household machine.</summary>
@@ -206,6 +208,10 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException($"household {_identity.Id} cannot rejoin before it was admitted and had a model");
         }
+        if (Phase == HouseholdPhase.AwaitingModel && !_rejoining)
+        {
+            _round--; // it left after its round's training (masked uploads: its upload was lost): that round was its last
+        }
         _rejoin.LastRound = _round;
         _buffer!.Count = 0;
         _pendingTrainingRound = -1;
@@ -336,11 +342,12 @@ public sealed class HouseholdAgent
         _lo = new float[k];
         _hi = new float[k];
         _action = new float[k];
-        int ownA = _scheme.ColumnsCrossWire ? _actor.FirstLayerBlockRange(m).Length : 0;
-        int ownC = _scheme.ColumnsCrossWire ? _critic.FirstLayerBlockRange(m).Length : 0;
+        int ownA = _scheme.ColumnsInUploads ? _actor.FirstLayerBlockRange(m).Length : 0;
+        int ownC = _scheme.ColumnsInUploads ? _critic.FirstLayerBlockRange(m).Length : 0;
         _uploadActor = new float[ownA + _actor.SharedRange().Length];
         _uploadCritic = new float[ownC + _critic.SharedRange().Length];
         _schemeSide = _scheme.CreateHouseholdSide(m, _seed);
+        _schemeSide.Configure(UploadLayout.Of(_actor, _householdCount, 2 * k), UploadLayout.Of(_critic, _householdCount, criticShape.OutputSize / _householdCount));
         if (!_scheme.ColumnsCrossWire)
         {
             // The household draws its own first-layer columns (same distribution as the coordinator's initialisation).
@@ -380,8 +387,17 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException("the first model must carry the household's first-layer columns");
         }
+        bool keepHeads = _hasModel && _scheme.HeadsStayHome;
+        if (keepHeads)
+        {
+            Heads(save: true);
+        }
         Load(_actor!, model.ActorParameters, own, "actor");
         Load(_critic!, model.CriticParameters, own, "critic");
+        if (keepHeads)
+        {
+            Heads(save: false); // masked uploads: the head never left, the broadcast's copy is the coordinator's stale one
+        }
         var (aso, asn) = _actor!.SharedRange();
         var (cso, csn) = _critic!.SharedRange();
         _schemeSide!.ModelLoaded(_actor.Parameters.Slice(aso, asn), _critic.Parameters.Slice(cso, csn));
@@ -394,6 +410,33 @@ public sealed class HouseholdAgent
         _rejoining = false;
         Phase = HouseholdPhase.Ready;
         return rejoined;
+    }
+
+    /// <summary>Copies the household's own output heads (actor and critic) into or out of <see cref="_heads"/>.</summary>
+    private void Heads(bool save)
+    {
+        int i = 0;
+        foreach ((DenseNetwork net, int outputs) in new[] { (_actor!, 2 * (_actor!.Shape.OutputSize / (2 * _householdCount))), (_critic!, _critic!.Shape.OutputSize / _householdCount) })
+        {
+            var ranges = Coordinator.OwnedRanges(net, _index, outputs);
+            for (int r = 1; r < ranges.Length; r++)
+            {
+                var (o, n) = ranges[r];
+                if (_heads.Length < i + n)
+                {
+                    Array.Resize(ref _heads, i + n);
+                }
+                if (save)
+                {
+                    net.Parameters.Slice(o, n).CopyTo(_heads.AsSpan(i, n));
+                }
+                else
+                {
+                    _heads.AsSpan(i, n).CopyTo(net.Parameters.Slice(o, n));
+                }
+                i += n;
+            }
+        }
     }
 
     private HouseholdMessage Outgoing()
@@ -502,6 +545,11 @@ public sealed class HouseholdAgent
         {
             throw new ProtocolException($"household {_index} is in round {_round}; training call for round {call.Round}");
         }
+        if (Phase is not (HouseholdPhase.AwaitingCost or HouseholdPhase.Ready))
+        {
+            Expect(HouseholdPhase.Ready, "take a training call");
+        }
+        _schemeSide!.TrainingCalled(call);
         if (Phase == HouseholdPhase.AwaitingCost)
         {
             _pendingTrainingRound = call.Round;
@@ -530,7 +578,7 @@ public sealed class HouseholdAgent
                 samples = _trainer!.Train(b);
             }
             int m = _index;
-            if (_scheme.ColumnsCrossWire)
+            if (_scheme.ColumnsInUploads)
             {
                 var (co, cn) = _actor!.FirstLayerBlockRange(m);
                 _actor.Parameters.Slice(co, cn).CopyTo(_uploadActor);
@@ -550,7 +598,7 @@ public sealed class HouseholdAgent
             }
             _upload.Round = round;
             _upload.SampleCount = samples;
-            _upload.Scope = _scheme.ColumnsCrossWire ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
+            _upload.Scope = _scheme.ColumnsInUploads ? ParameterScope.OwnColumnsAndShared : ParameterScope.Shared;
             _schemeSide!.EncodeUpload(_uploadActor, _uploadCritic, _upload);
             _out.HouseholdIndex = _index;
             _out.Upload = _upload;

@@ -119,6 +119,12 @@ public sealed class DifferentiallyPrivateScheme : IFederationScheme
     /// <inheritdoc />
     public bool ColumnsCrossWire => _inner.ColumnsCrossWire;
 
+    /// <inheritdoc />
+    public bool ColumnsInUploads => _inner.ColumnsInUploads;
+
+    /// <inheritdoc />
+    public bool HeadsStayHome => _inner.HeadsStayHome;
+
     /// <summary>Partial-sums vectors released so far, over all households (actor and critic count one each).</summary>
     public long PartialSumsReleased => Interlocked.Read(ref _sumsReleased);
 
@@ -200,6 +206,10 @@ public sealed class DifferentiallyPrivateScheme : IFederationScheme
             _inner.DecodeSums(reply, _actor.AsSpan(0, ownActor.Length), _critic.AsSpan(0, ownCritic.Length), otherActor, otherCritic);
 
         public bool TryWriteKeys(bool afterRejoin, HouseholdMessage message) => _inner.TryWriteKeys(afterRejoin, message);
+
+        public void Configure(UploadLayout actor, UploadLayout critic) => _inner.Configure(actor, critic);
+
+        public void TrainingCalled(TrainingCall call) => _inner.TrainingCalled(call);
 
         public bool TryReceive(CoordinatorMessage message, HouseholdMessage reply, out bool hasReply) =>
             _inner.TryReceive(message, reply, out hasReply);

@@ -47,6 +47,7 @@ public sealed class MaskedSumUnmasker : IDisposable
     private readonly ulong[] _sum;
     private readonly ulong[] _scratch;
     private readonly bool[] _arrived;
+    private readonly bool[] _absent;
     private readonly bool[] _revealed;
     private readonly Dictionary<(int Dropped, int Survivor), AesCtr> _recoveredPairs = [];
     private readonly List<int> _dropped = [];
@@ -85,6 +86,7 @@ public sealed class MaskedSumUnmasker : IDisposable
         _sum = new ulong[maxLength];
         _scratch = new ulong[maxLength];
         _arrived = new bool[publicKeys.Count];
+        _absent = new bool[publicKeys.Count];
         _revealed = new bool[publicKeys.Count];
     }
 
@@ -105,7 +107,7 @@ public sealed class MaskedSumUnmasker : IDisposable
             _dropped.Clear();
             for (int k = 0; k < _arrived.Length; k++)
             {
-                if (!_arrived[k] && !_excluded[k])
+                if (!_arrived[k] && !_excluded[k] && !_absent[k])
                 {
                     _dropped.Add(k);
                 }
@@ -175,7 +177,28 @@ public sealed class MaskedSumUnmasker : IDisposable
         _length = length;
         _survivors = 0;
         Array.Clear(_arrived);
+        Array.Clear(_absent);
         Array.Clear(_sum);
+    }
+
+    /// <summary>
+    /// Starts a masked sum among some households only (masked uploads: those called to train): the others neither
+    /// send nor are masked with, so they are not missing.
+    /// </summary>
+    /// <param name="context">Round, step and channel the households masked with.</param>
+    /// <param name="length">Vector length.</param>
+    /// <param name="participants">One flag per household: whether it takes part in this sum.</param>
+    public void Begin(MaskContext context, int length, ReadOnlySpan<bool> participants)
+    {
+        if (participants.Length != _arrived.Length)
+        {
+            throw new ArgumentException($"participant flags for {participants.Length} households; the sum has {_arrived.Length}", nameof(participants));
+        }
+        Begin(context, length);
+        for (int k = 0; k < _absent.Length; k++)
+        {
+            _absent[k] = !participants[k];
+        }
     }
 
     /// <summary>Adds household k's masked vector.</summary>
@@ -199,6 +222,10 @@ public sealed class MaskedSumUnmasker : IDisposable
         if (_excluded[household])
         {
             throw new InvalidOperationException($"household {household} is excluded from the masks");
+        }
+        if (_absent[household])
+        {
+            throw new InvalidOperationException($"household {household} does not take part in this sum");
         }
         if (_arrived[household])
         {
@@ -232,7 +259,7 @@ public sealed class MaskedSumUnmasker : IDisposable
         int dropped = 0;
         for (int k = 0; k < _arrived.Length; k++)
         {
-            dropped += _arrived[k] || _excluded[k] ? 0 : 1;
+            dropped += _arrived[k] || _excluded[k] || _absent[k] ? 0 : 1;
         }
         MaskedSumResult result;
         if (dropped == 0)
@@ -280,7 +307,7 @@ public sealed class MaskedSumUnmasker : IDisposable
         // First rebuild every dropped key (all or nothing), then touch the sum.
         for (int d = 0; d < _arrived.Length; d++)
         {
-            if (_arrived[d] || _revealed[d] || _excluded[d])
+            if (_arrived[d] || _revealed[d] || _excluded[d] || _absent[d])
             {
                 continue;
             }

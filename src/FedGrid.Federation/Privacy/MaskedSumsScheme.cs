@@ -62,7 +62,44 @@ public sealed class MaskedSumsScheme : IFederationScheme
     /// <returns>t.</returns>
     public static int DefaultThreshold(int households) => Math.Min(households, Math.Max(2, households / 2 + 1));
 
-    private const int ActorChannel = 0, CriticChannel = 1;
+    private const int ActorChannel = 0, CriticChannel = 1, UploadChannel = 2;
+
+    /// <summary>The step word of the uploads' mask context (no decision step has it: steps are below 2^32 − 1).</summary>
+    private const long UploadStep = uint.MaxValue;
+
+    /// <summary>
+    /// Bound on each masked-upload value (2^20): n·|θ − θ_broadcast| for a shared parameter and the sample count n. A larger
+    /// value stops the run with an error naming it.
+    /// </summary>
+    public const double MaxAbsUploadValue = 1 << 20;
+
+    /// <summary>Fractional bits of the uploads' encoding for M households: 62 − ⌈log2 M⌉ − 20 (at most 52); 37 for 32 households (resolution 7.3e-12).</summary>
+    /// <param name="households">M.</param>
+    /// <returns>f.</returns>
+    public static int UploadFractionalBits(int households) =>
+        Math.Min(52, 62 - (int)Math.Ceiling(Math.Log2(households)) - 20);
+
+    /// <summary>The uploads' mask context for a round: channel 2 and a step word no decision step uses, so no upload mask stream is a partial-sums one.</summary>
+    /// <param name="round">The round.</param>
+    /// <returns>The context.</returns>
+    public static MaskContext UploadContext(int round) => new(round, UploadStep, UploadChannel);
+
+    /// <summary>
+    /// Whether the round's uploads are masked too: each called household sends encode(v) + pairwise masks among the round's
+    /// participants (<see cref="ParameterUpload.MaskedParameters"/>), v its update of the shared parameters outside the
+    /// output heads relative to the broadcast, weighted by its sample count, and the sample count; the coordinator learns
+    /// only the sum, from which FedAvg follows exactly. The first-layer columns and the output heads then stay home.
+    /// </summary>
+    public bool MaskUploads { get; }
+
+    /// <summary>Rounds whose masked uploads were summed with every participant present.</summary>
+    public long CompletedUploadSums { get; private set; }
+
+    /// <summary>Rounds whose masked uploads were summed after removing dropped participants' masks.</summary>
+    public long RecoveredUploadSums { get; private set; }
+
+    /// <summary>Rounds whose masked uploads had no total (too few shares).</summary>
+    public long AbandonedUploadSums { get; private set; }
 
     private readonly IFederationScheme _inner;
     private readonly byte[] _sessionId;
@@ -72,9 +109,11 @@ public sealed class MaskedSumsScheme : IFederationScheme
     /// <param name="inner">The scheme whose uploads, aggregation and column policy are used (plain by default).</param>
     /// <param name="sessionId">Session identifier the coordinator binds into every pairwise key (HKDF salt); 16 random bytes when null.</param>
     /// <param name="threshold">t of the Shamir sharing (<see cref="DefaultThreshold"/> when null); 2 ≤ t ≤ M.</param>
-    public MaskedSumsScheme(IFederationScheme? inner = null, byte[]? sessionId = null, int? threshold = null)
+    /// <param name="maskUploads">Mask the round's uploads too (<see cref="MaskUploads"/>).</param>
+    public MaskedSumsScheme(IFederationScheme? inner = null, byte[]? sessionId = null, int? threshold = null, bool maskUploads = false)
     {
         _inner = inner ?? ClearScheme.Plain();
+        MaskUploads = maskUploads;
         _sessionId = sessionId ?? RandomNumberGenerator.GetBytes(16);
         if (threshold is < 2)
         {
@@ -92,6 +131,12 @@ public sealed class MaskedSumsScheme : IFederationScheme
     /// <inheritdoc />
     public bool ColumnsCrossWire => _inner.ColumnsCrossWire;
 
+    /// <inheritdoc />
+    public bool ColumnsInUploads => !MaskUploads && _inner.ColumnsInUploads;
+
+    /// <inheritdoc />
+    public bool HeadsStayHome => MaskUploads || _inner.HeadsStayHome;
+
     /// <summary>Steps the coordinator side summed with every household present.</summary>
     public long CompletedSums { get; private set; }
 
@@ -103,7 +148,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
 
     /// <inheritdoc />
     public IHouseholdSchemeSide CreateHouseholdSide(int householdIndex, ulong householdSeed) =>
-        new HouseholdSide(householdIndex, _inner.CreateHouseholdSide(householdIndex, householdSeed));
+        new HouseholdSide(this, householdIndex, _inner.CreateHouseholdSide(householdIndex, householdSeed));
 
     /// <inheritdoc />
     public ICoordinatorSchemeSide CreateCoordinatorSide(int householdCount, int actorSums, int criticSums)
@@ -118,6 +163,63 @@ public sealed class MaskedSumsScheme : IFederationScheme
     }
 
     private static FixedPointEncoding Encoding(int households) => new(MaxAbsValue, households, FractionalBits(households));
+
+    private static FixedPointEncoding UploadEncoding(int households) => new(MaxAbsUploadValue, households, UploadFractionalBits(households));
+
+    /// <summary>
+    /// The positions of the concatenated shared parts (actor ‖ critic) a masked upload carries: every position outside the
+    /// households' output heads (the heads stay with their households under masked uploads).
+    /// </summary>
+    private static int[] UploadPositions(UploadLayout actor, UploadLayout critic)
+    {
+        var head = new bool[actor.SharedLength + critic.SharedLength];
+        Mark(actor, 0);
+        Mark(critic, actor.SharedLength);
+        var positions = new List<int>(head.Length);
+        for (int i = 0; i < head.Length; i++)
+        {
+            if (!head[i])
+            {
+                positions.Add(i);
+            }
+        }
+        return [.. positions];
+
+        void Mark(UploadLayout layout, int start)
+        {
+            foreach ((int Offset, int Length)[] ranges in layout.Heads)
+            {
+                foreach ((int o, int n) in ranges)
+                {
+                    head.AsSpan(start + o, n).Fill(true);
+                }
+            }
+        }
+    }
+
+    /// <summary>Adds an uploader's revealed shares to the shares collected for the households being recovered.</summary>
+    private static void CollectShares(Dictionary<int, List<ShamirShare>> collected, int household, RecoveryShares message)
+    {
+        foreach (RevealedShare s in message.Shares)
+        {
+            if (!collected.TryGetValue(s.Owner, out List<ShamirShare>? list))
+            {
+                throw new ProtocolException($"masked sums: household {household} revealed a share of household {s.Owner}, which is not being recovered");
+            }
+            if (s.Value.Length != KeyShareCipher.ValueBytes)
+            {
+                throw new ProtocolException($"masked sums: household {household}'s share of household {s.Owner} is {s.Value.Length} bytes; {KeyShareCipher.ValueBytes} expected");
+            }
+            foreach (ShamirShare earlier in list)
+            {
+                if (earlier.Index == household + 1)
+                {
+                    throw new ProtocolException($"masked sums: household {household} revealed its share of household {s.Owner} twice");
+                }
+            }
+            list.Add(new ShamirShare(household + 1, new BigInteger(s.Value.Span, isUnsigned: true, isBigEndian: true)));
+        }
+    }
 
     private static MaskContext Context(PartialSums message, int channel) => new(message.Round, message.Step, channel);
 
@@ -150,11 +252,56 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private int _threshold;
         private bool _ready;
         private ulong[] _actor = [], _critic = [];
+        private readonly MaskedSumsScheme _scheme;
+        private UploadLayout? _actorLayout, _criticLayout;
+        private int[] _uploadPositions = [];
+        private bool[] _participants = [];
+        private int _calledRound = -1;
+        private float[] _baseActor = [], _baseCritic = [];
+        private double[] _uploadValues = [];
+        private ulong[] _uploadWords = [];
+        private FixedPointEncoding? _uploadEncoding;
 
-        public HouseholdSide(int index, IHouseholdSchemeSide inner)
+        public HouseholdSide(MaskedSumsScheme scheme, int index, IHouseholdSchemeSide inner)
         {
+            _scheme = scheme;
             _index = index;
             _inner = inner;
+        }
+
+        public void Configure(UploadLayout actor, UploadLayout critic)
+        {
+            _actorLayout = actor;
+            _criticLayout = critic;
+            _inner.Configure(actor, critic);
+        }
+
+        public void TrainingCalled(TrainingCall call)
+        {
+            _inner.TrainingCalled(call);
+            if (!_scheme.MaskUploads || !call.Selected)
+            {
+                return;
+            }
+            int n = _maskKeyOf.Length;
+            if (_participants.Length != n)
+            {
+                _participants = new bool[n];
+            }
+            Array.Clear(_participants);
+            foreach (int k in call.Participants)
+            {
+                if (k < 0 || k >= n || _participants[k])
+                {
+                    throw new ProtocolException($"masked uploads: the training call of round {call.Round} names participant {k} (of {n}) out of range or twice");
+                }
+                _participants[k] = true;
+            }
+            if (!_participants[_index])
+            {
+                throw new ProtocolException($"masked uploads: household {_index} is called to train in round {call.Round} but not among the participants");
+            }
+            _calledRound = call.Round;
         }
 
         public bool TryWriteKeys(bool afterRejoin, HouseholdMessage message)
@@ -349,11 +496,67 @@ public sealed class MaskedSumsScheme : IFederationScheme
             }
         }
 
-        public void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message) =>
+        public void EncodeUpload(ReadOnlySpan<float> actor, ReadOnlySpan<float> critic, ParameterUpload message)
+        {
             _inner.EncodeUpload(actor, critic, message);
+            if (!_scheme.MaskUploads)
+            {
+                return;
+            }
+            if (_masker is null || _actorLayout is null || _criticLayout is null || _calledRound != message.Round)
+            {
+                throw new ProtocolException($"masked uploads: household {_index} uploads for round {message.Round} without its pair keys, layouts or a training call naming the participants");
+            }
+            int na = _actorLayout.SharedLength, nc = _criticLayout.SharedLength;
+            if (message.ActorParameters.Count != na || message.CriticParameters.Count != nc || _baseActor.Length != na || _baseCritic.Length != nc)
+            {
+                throw new ProtocolException($"masked uploads: household {_index}'s upload carries {message.ActorParameters.Count} + {message.CriticParameters.Count} parameters; the shared parts are {na} + {nc}");
+            }
+            if (_uploadPositions.Length == 0)
+            {
+                _uploadPositions = UploadPositions(_actorLayout, _criticLayout);
+                _uploadValues = new double[_uploadPositions.Length + 1];
+                _uploadWords = new ulong[_uploadPositions.Length + 1];
+            }
+            int length = _uploadValues.Length;
+            _masker.Reserve(length); // a no-op but after a rejoin, whose fresh keys come with a new masker
+            double samples = message.SampleCount;
+            for (int j = 0; j < _uploadPositions.Length; j++)
+            {
+                int i = _uploadPositions[j];
+                double trained = i < na ? message.ActorParameters[i] : message.CriticParameters[i - na];
+                double broadcast = i < na ? _baseActor[i] : _baseCritic[i - na];
+                _uploadValues[j] = samples * (trained - broadcast);
+            }
+            _uploadValues[length - 1] = samples;
+            _uploadEncoding ??= UploadEncoding(_maskKeyOf.Length);
+            try
+            {
+                _uploadEncoding.Encode(_uploadValues, _uploadWords);
+            }
+            catch (OverflowException e)
+            {
+                throw new OverflowException($"masked uploads: household {_index}'s upload of round {message.Round} does not fit the uploads' fixed-point bound (n·|Δθ| ≤ {MaxAbsUploadValue:G6}; {e.Message})", e);
+            }
+            _masker.AddMasks(UploadContext(message.Round), _uploadWords, _participants);
+            message.ActorParameters.Clear();
+            message.CriticParameters.Clear();
+            message.SampleCount = 0;
+            message.Scope = ParameterScope.Shared;
+            Fill(message.MaskedParameters, _uploadWords);
+        }
 
-        public void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared) =>
+        public void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared)
+        {
+            if (_scheme.MaskUploads)
+            {
+                if (_baseActor.Length != actorShared.Length) _baseActor = new float[actorShared.Length];
+                if (_baseCritic.Length != criticShared.Length) _baseCritic = new float[criticShared.Length];
+                actorShared.CopyTo(_baseActor);
+                criticShared.CopyTo(_baseCritic);
+            }
             _inner.ModelLoaded(actorShared, criticShared);
+        }
 
         private static void Fill(Google.Protobuf.Collections.RepeatedField<ulong> target, ReadOnlySpan<ulong> values)
         {
@@ -365,8 +568,16 @@ public sealed class MaskedSumsScheme : IFederationScheme
         }
     }
 
-    private sealed class CoordinatorSide : ICoordinatorSchemeSide, ICoordinatorSchemeMessages
+    private sealed class CoordinatorSide : ICoordinatorSchemeSide, ICoordinatorSchemeMessages, IMaskedUploads
     {
+        private UploadLayout? _actorLayout, _criticLayout;
+        private int[] _positions = [];
+        private MaskedSumUnmasker? _uploads;
+        private readonly Dictionary<int, List<ShamirShare>> _uploadShares = [];
+        private readonly List<int> _uploadPending = [];
+        private ulong[] _uploadScratch = [];
+        private double[] _uploadTotal = [];
+
         private readonly MaskedSumsScheme _scheme;
         private readonly ICoordinatorSchemeSide _inner;
         private readonly TotalCombiner _combiner;
@@ -391,6 +602,128 @@ public sealed class MaskedSumsScheme : IFederationScheme
         }
 
         public IPartialSumsCombiner PartialSums => _combiner;
+
+        public IMaskedUploads? MaskedUploads => _scheme.MaskUploads ? this : null;
+
+        private int UploadLength => _positions.Length + 1;
+
+        public void Configure(UploadLayout actor, UploadLayout critic)
+        {
+            _actorLayout = actor;
+            _criticLayout = critic;
+            // Every shared position but the output heads (they stay with their households).
+            _positions = UploadPositions(actor, critic);
+            _uploadScratch = new ulong[UploadLength];
+            _uploadTotal = new double[UploadLength];
+        }
+
+        public void Check(int household, ParameterUpload upload)
+        {
+            if (_uploads is null)
+            {
+                throw new ProtocolException($"masked uploads: household {household} uploads before every household's keys are in the directory");
+            }
+            if (upload.ActorParameters.Count != 0 || upload.CriticParameters.Count != 0 || upload.SampleCount != 0 || upload.Scope != ParameterScope.Shared)
+            {
+                throw new ProtocolException($"masked uploads: household {household} sent clear parameters or a clear sample count (scope {upload.Scope}, {upload.ActorParameters.Count} + {upload.CriticParameters.Count} values, {upload.SampleCount} samples); only masked_parameters may carry them");
+            }
+            if (upload.MaskedParameters.Count != UploadLength)
+            {
+                throw new ProtocolException($"masked uploads: household {household}'s masked upload carries {upload.MaskedParameters.Count} words; {UploadLength} expected (the {_positions.Length} shared parameters outside the output heads and the sample count)");
+            }
+            if (_excluded[household] || _uploads.IsRevealed(household))
+            {
+                throw new ProtocolException($"masked uploads: household {household} is out of the masks (dropped, its key rebuilt or excluded); it must rejoin with new keys");
+            }
+        }
+
+        public IReadOnlyList<int> SharesNeeded(IReadOnlyList<int> missing, int uploaders)
+        {
+            _uploadPending.Clear();
+            _uploadShares.Clear();
+            if (uploaders < _threshold)
+            {
+                return [];
+            }
+            foreach (int d in missing)
+            {
+                if (!_excluded[d] && !_uploads!.IsRevealed(d))
+                {
+                    _uploadPending.Add(d);
+                    _uploadShares[d] = [];
+                }
+            }
+            return _uploadPending;
+        }
+
+        void IMaskedUploads.AddShares(int household, RecoveryShares message) => CollectShares(_uploadShares, household, message);
+
+        public MaskedUploadsOutcome Aggregate(int round, IReadOnlyList<ReceivedUpload> uploads, ReadOnlySpan<bool> participants, Span<float> actorShared, Span<float> criticShared)
+        {
+            MaskedSumUnmasker unmasker = _uploads ?? throw new ProtocolException("masked uploads: no key directory yet");
+            int length = UploadLength, na = _actorLayout!.SharedLength, nc = _criticLayout!.SharedLength;
+            if (actorShared.Length != na || criticShared.Length != nc)
+            {
+                throw new ArgumentException($"shared parts of {actorShared.Length} + {criticShared.Length}; the layouts say {na} + {nc}");
+            }
+            unmasker.Begin(UploadContext(round), length, participants);
+            foreach (ReceivedUpload r in uploads)
+            {
+                Span<ulong> v = _uploadScratch.AsSpan(0, length);
+                for (int i = 0; i < length; i++)
+                {
+                    v[i] = r.Upload.MaskedParameters[i];
+                }
+                unmasker.Add(r.Household, v);
+            }
+            var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(_uploadShares.Count);
+            foreach ((int d, List<ShamirShare> list) in _uploadShares)
+            {
+                shares[d] = list;
+            }
+            MaskedSumResult result = unmasker.Complete(shares, _uploadTotal);
+            int[] pending = [.. _uploadPending];
+            _uploadPending.Clear();
+            _uploadShares.Clear();
+            if (!result.HasTotal)
+            {
+                _scheme.AbandonedUploadSums++;
+                var unrecovered = new List<int>();
+                for (int k = 0; k < participants.Length; k++)
+                {
+                    if (participants[k] && !uploads.Any(u => u.Household == k))
+                    {
+                        unrecovered.Add(k);
+                    }
+                }
+                return new MaskedUploadsOutcome(new SumsOutcome(false, [], unrecovered, $"no total of the round's masked uploads: {result.Reason}; model kept"), 0);
+            }
+            double samples = _uploadTotal[length - 1];
+            if (samples > 0)
+            {
+                // FedAvg from the sum: θ_b + Σ n_k Δ_k / Σ n_k; the heads keep the broadcast value (they stay home).
+                for (int j = 0; j < _positions.Length; j++)
+                {
+                    int i = _positions[j];
+                    if (i < na)
+                    {
+                        actorShared[i] = (float)(actorShared[i] + (_uploadTotal[j] / samples));
+                    }
+                    else
+                    {
+                        criticShared[i - na] = (float)(criticShared[i - na] + (_uploadTotal[j] / samples));
+                    }
+                }
+            }
+            if (result.Status == MaskedSumStatus.Complete)
+            {
+                _scheme.CompletedUploadSums++;
+                return new MaskedUploadsOutcome(SumsOutcome.Complete, (long)Math.Round(samples));
+            }
+            _scheme.RecoveredUploadSums++;
+            return new MaskedUploadsOutcome(new SumsOutcome(true, pending, [],
+                $"masks of {pending.Length} dropped participants removed from the masked uploads with the uploaders' shares (threshold {_threshold}); {result.Survivors} uploads summed"), (long)Math.Round(samples));
+        }
 
         public void AggregateUploads(IReadOnlyList<ReceivedUpload> uploads, Span<float> actorShared, Span<float> criticShared) =>
             _inner.AggregateUploads(uploads, actorShared, criticShared);
@@ -432,6 +765,10 @@ public sealed class MaskedSumsScheme : IFederationScheme
                 }
                 _directorySent = true;
                 _combiner.Start(_mask!, _scheme._sessionId);
+                if (_scheme.MaskUploads)
+                {
+                    _uploads = new MaskedSumUnmasker(_mask!, _scheme._sessionId, UploadEncoding(_n), _threshold, UploadLength);
+                }
                 send(new CoordinatorMessage { HouseholdIndex = -1, MaskedKeys = Directory(null) });
                 return;
             }
@@ -449,6 +786,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _excluded[m] = false;
             _shared[m] = false;
             _combiner.Replace(m, mask);
+            _uploads?.Replace(m, mask);
             // The others learn the newcomer's keys; the newcomer gets the whole directory.
             MaskedSumsKeys update = Directory(m);
             for (int h = 0; h < _n; h++)
@@ -501,6 +839,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
                 {
                     _excluded[k] = true;
                     _combiner.Exclude(k);
+                    _uploads?.Exclude(k);
                     update.Entries.Add(new MaskedSumsKeyEntry { Household = k, Excluded = true });
                 }
             }
@@ -649,28 +988,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             return _pending;
         }
 
-        public void AddShares(int household, RecoveryShares message)
-        {
-            foreach (RevealedShare s in message.Shares)
-            {
-                if (!_shares.TryGetValue(s.Owner, out List<ShamirShare>? list))
-                {
-                    throw new ProtocolException($"masked sums: household {household} revealed a share of household {s.Owner}, which is not being recovered");
-                }
-                if (s.Value.Length != KeyShareCipher.ValueBytes)
-                {
-                    throw new ProtocolException($"masked sums: household {household}'s share of household {s.Owner} is {s.Value.Length} bytes; {KeyShareCipher.ValueBytes} expected");
-                }
-                foreach (ShamirShare earlier in list)
-                {
-                    if (earlier.Index == household + 1)
-                    {
-                        throw new ProtocolException($"masked sums: household {household} revealed its share of household {s.Owner} twice");
-                    }
-                }
-                list.Add(new ShamirShare(household + 1, new BigInteger(s.Value.Span, isUnsigned: true, isBigEndian: true)));
-            }
-        }
+        public void AddShares(int household, RecoveryShares message) => CollectShares(_shares, household, message);
 
         public SumsOutcome Close()
         {

@@ -262,7 +262,7 @@ public static class PairwiseMask
 public sealed class PairwiseMasker : IDisposable
 {
     private readonly AesCtr?[] _pairs;
-    private readonly ulong[] _scratch;
+    private ulong[] _scratch;
     private readonly MaskingKeyPair _keys;
     private readonly byte[] _sessionId;
 
@@ -359,6 +359,44 @@ public sealed class PairwiseMasker : IDisposable
         CheckLength(values.Length, masked.Length);
         Encoding.Encode(values, masked);
         AddMasks(context, masked);
+    }
+
+    /// <summary>
+    /// Adds the masks of the pairs (m, k) to words already encoded (with an encoding of the caller's, e.g. the uploads'
+    /// wider bound), for the peers k that <paramref name="participants"/> marks only (masked uploads: the households
+    /// called to train in the round).
+    /// </summary>
+    /// <param name="context">Round, step and channel (each context used once per household).</param>
+    /// <param name="encoded">Fixed-point words, masked in place modulo 2^64.</param>
+    /// <param name="participants">One flag per household: whether its pair mask is applied (m's own flag must be set).</param>
+    public void AddMasks(MaskContext context, Span<ulong> encoded, ReadOnlySpan<bool> participants)
+    {
+        if (encoded.Length > _scratch.Length)
+        {
+            throw new ArgumentException($"vector of {encoded.Length} values is longer than the masker's {_scratch.Length}; call Reserve first");
+        }
+        if (participants.Length != _pairs.Length || !participants[Household])
+        {
+            throw new ArgumentException($"participant flags for {participants.Length} households must include household {Household} of {_pairs.Length}", nameof(participants));
+        }
+        for (int k = 0; k < _pairs.Length; k++)
+        {
+            if (participants[k] && _pairs[k] is { } stream)
+            {
+                PairwiseMask.Apply(stream, context, Household, k, _scratch, encoded);
+            }
+        }
+    }
+
+    /// <summary>Makes room for vectors of <paramref name="maxLength"/> values (allocates once when longer than before).</summary>
+    /// <param name="maxLength">Longest vector to be masked.</param>
+    public void Reserve(int maxLength)
+    {
+        ArgumentOutOfRangeException.ThrowIfNegative(maxLength);
+        if (maxLength > _scratch.Length)
+        {
+            _scratch = new ulong[maxLength];
+        }
     }
 
     /// <inheritdoc />

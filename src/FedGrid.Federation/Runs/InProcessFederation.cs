@@ -69,6 +69,8 @@ public enum DropoutPoint
     BeforeProjectionInputs,
     /// <summary>Masked sums: after its partial sums, before it answers a recovery request (it never answers).</summary>
     BeforeRecoveryShares,
+    /// <summary>At the round's last step (the dropout's step), after its costs, before its upload (the upload is lost).</summary>
+    BeforeUpload,
 }
 
 /// <summary>A scripted dropout of the in-process simulation.</summary>
@@ -393,9 +395,14 @@ public sealed class InProcessFederation : ICoordinatorOutbox
             {
                 if (_replies[m] is { } r)
                 {
-                    if (_options.UploadDropout > 0 && _dropout.NextDouble() < _options.UploadDropout)
+                    bool scripted = _dropAt[m] == DropoutPoint.BeforeUpload && r.BodyCase == HouseholdMessage.BodyOneofCase.Upload;
+                    if (scripted || (_options.UploadDropout > 0 && _dropout.NextDouble() < _options.UploadDropout))
                     {
                         lost = true;
+                        if (Coordinator.MasksUploads)
+                        {
+                            GoOffline(m); // under masked uploads the coordinator drops a silent participant; it rejoins with fresh keys
+                        }
                         continue;
                     }
                     if (_options.SimulatedUploadTamper is { } tamper && r.BodyCase == HouseholdMessage.BodyOneofCase.Upload)
@@ -406,9 +413,9 @@ public sealed class InProcessFederation : ICoordinatorOutbox
                     Drain();
                 }
             }
-            if (lost && Coordinator.Phase == CoordinatorPhase.CollectingUploads)
+            while (lost && Coordinator.Phase is CoordinatorPhase.CollectingUploads or CoordinatorPhase.CollectingUploadRecoveryShares)
             {
-                Coordinator.CloseRound(this);
+                Coordinator.CloseRound(this); // the upload (then the recovery) deadline
                 Drain();
             }
             if (_online < n && _options.RejoinAfterDropout && Coordinator.Phase == CoordinatorPhase.CollectingPartialSums)

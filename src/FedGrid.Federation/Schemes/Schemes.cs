@@ -22,6 +22,19 @@ public interface IFederationScheme
     /// </summary>
     bool ColumnsCrossWire { get; }
 
+    /// <summary>
+    /// Whether a household's uploads carry its first-layer columns W_m (scope OWN_COLUMNS_AND_SHARED). Defaults to
+    /// <see cref="ColumnsCrossWire"/>; masked uploads keep the columns home even when the initial model sends them.
+    /// </summary>
+    bool ColumnsInUploads => ColumnsCrossWire;
+
+    /// <summary>
+    /// Whether each household keeps its own output head (the parameters it alone trains besides W_m) instead of taking the
+    /// broadcast's copy: true under masked uploads, where the head never crosses (a sum of one term would be the
+    /// household's own update). Default false.
+    /// </summary>
+    bool HeadsStayHome => false;
+
     /// <summary>Creates household m's side (one per household; may hold per-household secrets and buffers).</summary>
     /// <param name="householdIndex">m.</param>
     /// <param name="householdSeed">The household's own seed (never sent).</param>
@@ -67,6 +80,22 @@ public interface IHouseholdSchemeSide
     /// <param name="actorShared">The actor's shared parameters.</param>
     /// <param name="criticShared">The critic's shared parameters.</param>
     void ModelLoaded(ReadOnlySpan<float> actorShared, ReadOnlySpan<float> criticShared)
+    {
+    }
+
+    /// <summary>
+    /// Told once after admission: where each household's own output head lies in the shared part of each network's upload
+    /// (masked uploads treat those parameters apart). A wrapping side forwards the call. Default: nothing.
+    /// </summary>
+    /// <param name="actor">The actor's layout.</param>
+    /// <param name="critic">The critic's layout.</param>
+    void Configure(UploadLayout actor, UploadLayout critic)
+    {
+    }
+
+    /// <summary>Told when a round's training call arrives (before the upload is encoded). A wrapping side forwards the call. Default: nothing.</summary>
+    /// <param name="call">The call (masked uploads: the participants to mask with).</param>
+    void TrainingCalled(TrainingCall call)
     {
     }
 
@@ -130,7 +159,80 @@ public interface ICoordinatorSchemeSide
     /// <param name="actorShared">Receives the actor's shared parameters.</param>
     /// <param name="criticShared">Receives the critic's shared parameters.</param>
     void AggregateUploads(IReadOnlyList<ReceivedUpload> uploads, Span<float> actorShared, Span<float> criticShared);
+
+    /// <summary>The masked-uploads side when the scheme masks uploads (then the coordinator sees only their sum); null otherwise (the default).</summary>
+    IMaskedUploads? MaskedUploads => null;
 }
+
+/// <summary>
+/// Where each household's own output head lies inside the shared part of one network (the upload's SHARED scope):
+/// parameters only that household trains, which FedAvg gives the household's own value rather than the average.
+/// </summary>
+/// <param name="SharedLength">Length of the shared part (from <c>SharedRange().Offset</c> to the end).</param>
+/// <param name="Heads">Per household, its head's (offset, length) ranges relative to the shared part's start.</param>
+public sealed record UploadLayout(int SharedLength, IReadOnlyList<(int Offset, int Length)[]> Heads)
+{
+    /// <summary>The layout of a network of <paramref name="households"/> heads of <paramref name="outputsPerHousehold"/> outputs each.</summary>
+    /// <param name="network">The network.</param>
+    /// <param name="households">M.</param>
+    /// <param name="outputsPerHousehold">Outputs per head (2k actor, 1 critic).</param>
+    /// <returns>The layout.</returns>
+    public static UploadLayout Of(Learning.Networks.DenseNetwork network, int households, int outputsPerHousehold)
+    {
+        ArgumentNullException.ThrowIfNull(network);
+        var (offset, length) = network.SharedRange();
+        var heads = new (int Offset, int Length)[households][];
+        for (int m = 0; m < households; m++)
+        {
+            var owned = Coordination.Coordinator.OwnedRanges(network, m, outputsPerHousehold);
+            heads[m] = [(owned[1].Offset - offset, owned[1].Length), (owned[2].Offset - offset, owned[2].Length)];
+        }
+        return new UploadLayout(length, heads);
+    }
+}
+
+/// <summary>
+/// The coordinator's side of masked uploads: each called household sends its upload in fixed point with pairwise masks
+/// among the round's participants, and the coordinator learns only the sum, with the dropped participants' masks removed
+/// from the survivors' shares (or the round abandoned, never mis-summed).
+/// </summary>
+public interface IMaskedUploads
+{
+    /// <summary>Told once, at construction: the networks' layouts.</summary>
+    /// <param name="actor">Actor layout.</param>
+    /// <param name="critic">Critic layout.</param>
+    void Configure(UploadLayout actor, UploadLayout critic);
+
+    /// <summary>Checks one masked upload (sizes, scope, no clear values); throws <see cref="ProtocolException"/> when it does not fit.</summary>
+    /// <param name="household">Sender.</param>
+    /// <param name="upload">The upload.</param>
+    void Check(int household, ParameterUpload upload);
+
+    /// <summary>After the upload deadline: which of the <paramref name="missing"/> participants' masks must be recovered from the survivors' shares (empty when none can or need be).</summary>
+    /// <param name="missing">Participants whose upload did not arrive.</param>
+    /// <param name="uploaders">Uploads that arrived (below the threshold no shares are asked for: they could not help, and would reveal keys for nothing).</param>
+    /// <returns>Households whose shares the uploaders must reveal.</returns>
+    IReadOnlyList<int> SharesNeeded(IReadOnlyList<int> missing, int uploaders);
+
+    /// <summary>Takes an uploader's revealed shares.</summary>
+    /// <param name="household">The uploader.</param>
+    /// <param name="message">Its shares.</param>
+    void AddShares(int household, RecoveryShares message);
+
+    /// <summary>Sums the round's masked uploads and writes the averaged shared parameters.</summary>
+    /// <param name="round">The round.</param>
+    /// <param name="uploads">The uploads that arrived.</param>
+    /// <param name="participants">One flag per household: called to train this round.</param>
+    /// <param name="actorShared">In: the broadcast actor's shared parameters; out: the aggregate (when there is a total).</param>
+    /// <param name="criticShared">In: the broadcast critic's shared parameters; out: the aggregate.</param>
+    /// <returns>How it ended and the total sample count.</returns>
+    MaskedUploadsOutcome Aggregate(int round, IReadOnlyList<ReceivedUpload> uploads, ReadOnlySpan<bool> participants, Span<float> actorShared, Span<float> criticShared);
+}
+
+/// <summary>How a round's masked uploads were summed.</summary>
+/// <param name="Sums">Whether there is a total, and which dropped participants' masks were removed or could not be.</param>
+/// <param name="Samples">Σ n_k over the uploads (0 without a total).</param>
+public sealed record MaskedUploadsOutcome(SumsOutcome Sums, long Samples);
 
 /// <summary>One upload as the coordinator received it.</summary>
 /// <param name="Household">Sender's index.</param>
@@ -478,16 +580,50 @@ public static class FederationSchemes
     /// fixed-point rounding; <c>dp</c> is the DP layer over private-columns, <c>dp-masked-sums</c> over masked sums
     /// over private-columns (the coordinator learns only the total of the noisy partial sums).</returns>
     /// <exception cref="ArgumentException">Unknown name.</exception>
-    public static IFederationScheme FromName(string name, Func<IUploadAggregator>? aggregator = null, DifferentialPrivacySettings? privacy = null) => name switch
+    /// <param name="maskUploads">Mask the uploads too (<see cref="MaskedSumsScheme.MaskUploads"/>); only with <c>masked-sums</c> and
+    /// <c>dp-masked-sums</c> and FedAvg (the coordinator then has no individual uploads for a median or trimmed mean).</param>
+    /// <exception cref="ArgumentException">Unknown name, or masked uploads with a scheme or rule they cannot work with.</exception>
+    public static IFederationScheme FromName(string name, Func<IUploadAggregator>? aggregator = null, DifferentialPrivacySettings? privacy = null, bool maskUploads = false)
     {
-        ClearScheme.PlainName => ClearScheme.Plain(aggregator),
-        ClearScheme.PrivateColumnsName => ClearScheme.PrivateColumns(aggregator),
-        MaskedSumsScheme.SchemeName => new MaskedSumsScheme(ClearScheme.Plain(aggregator)),
-        DifferentiallyPrivateScheme.SchemeName => new DifferentiallyPrivateScheme(ClearScheme.PrivateColumns(aggregator), privacy ?? new()),
-        DifferentiallyPrivateScheme.MaskedSchemeName =>
-            new DifferentiallyPrivateScheme(new MaskedSumsScheme(ClearScheme.PrivateColumns(aggregator)), privacy ?? new()),
-        _ => throw new ArgumentException($"unknown scheme '{name}'; use {NameList()}", nameof(name)),
-    };
+        CheckMaskUploads(name, maskUploads, aggregator?.Invoke().Name ?? "fedavg");
+        return name switch
+        {
+            ClearScheme.PlainName => ClearScheme.Plain(aggregator),
+            ClearScheme.PrivateColumnsName => ClearScheme.PrivateColumns(aggregator),
+            MaskedSumsScheme.SchemeName => new MaskedSumsScheme(ClearScheme.Plain(aggregator), maskUploads: maskUploads),
+            DifferentiallyPrivateScheme.SchemeName => new DifferentiallyPrivateScheme(ClearScheme.PrivateColumns(aggregator), privacy ?? new()),
+            DifferentiallyPrivateScheme.MaskedSchemeName =>
+                new DifferentiallyPrivateScheme(new MaskedSumsScheme(ClearScheme.PrivateColumns(aggregator), maskUploads: maskUploads), privacy ?? new()),
+            _ => throw new ArgumentException($"unknown scheme '{name}'; use {NameList()}", nameof(name)),
+        };
+    }
+
+    /// <summary>Whether a scheme name can mask its uploads.</summary>
+    /// <param name="name">A scheme name.</param>
+    /// <returns>True for <c>masked-sums</c> and <c>dp-masked-sums</c>.</returns>
+    public static bool CanMaskUploads(string name) =>
+        name is MaskedSumsScheme.SchemeName or DifferentiallyPrivateScheme.MaskedSchemeName;
+
+    /// <summary>Refuses, with a message naming the option, masked uploads with a scheme or averaging rule they cannot work with.</summary>
+    /// <param name="scheme">Scheme name.</param>
+    /// <param name="maskUploads">Whether uploads are to be masked.</param>
+    /// <param name="aggregation">Averaging rule name (fedavg, median, trimmed-mean).</param>
+    /// <exception cref="ArgumentException">The combination cannot work.</exception>
+    public static void CheckMaskUploads(string scheme, bool maskUploads, string aggregation)
+    {
+        if (!maskUploads)
+        {
+            return;
+        }
+        if (!CanMaskUploads(scheme))
+        {
+            throw new ArgumentException($"--mask-uploads needs the pairwise masks of scheme masked-sums or dp-masked-sums; scheme '{scheme}' has none");
+        }
+        if (aggregation != "fedavg")
+        {
+            throw new ArgumentException($"--mask-uploads cannot be combined with --aggregation {aggregation}: the coordinator sees only the sum of the uploads, which is enough for FedAvg but not for a coordinate-wise median or trimmed mean (they need every individual upload)");
+        }
+    }
 
     /// <summary>The names as a phrase: "a, b or c".</summary>
     /// <returns>The phrase.</returns>
