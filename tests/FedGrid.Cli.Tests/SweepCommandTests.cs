@@ -60,13 +60,17 @@ public sealed class SweepCommandTests
         string dir = Path.Combine(Path.GetTempPath(), "fedgrid-sweep-bad-" + Guid.NewGuid().ToString("N"));
         var e1 = Assert.Throws<UserInputException>(() => SweepCommand.Run("plain,dp", null, 1, dir, true, TextWriter.Null, TextWriter.Null, maskUploads: true));
         Assert.Contains("--mask-uploads: none of the schemes (plain,dp) masks", e1.Message);
-        var e2 = Assert.Throws<UserInputException>(() => SweepCommand.Run("dp", null, 1, dir, true, TextWriter.Null, TextWriter.Null, delta: 1));
+        var e2 = Assert.Throws<UserInputException>(() => SweepCommand.Run("dp", null, 1, dir, true, TextWriter.Null, TextWriter.Null, dpSettings: new DpSettings(Delta: 1)));
         Assert.Contains("--delta must lie strictly between 0 and 1, got 1", e2.Message);
+        var e3 = Assert.Throws<UserInputException>(() => SweepCommand.Run("dp", null, 1, dir, true, TextWriter.Null, TextWriter.Null, dpSettings: new DpSettings(UploadClipNorm: -2)));
+        Assert.Contains("--upload-clip-norm", e3.Message);
         Assert.False(Directory.Exists(Path.Combine(dir, "dp")));
-        System.CommandLine.ParseResult parsed = Verbs.All().Single(c => c.Name == "sweep").Parse("--scheme masked-sums --mask-uploads --delta 1e-3");
+        System.CommandLine.ParseResult parsed = Verbs.All().Single(c => c.Name == "sweep").Parse("--scheme masked-sums --mask-uploads --delta 1e-3 --clip-norm 2 --upload-clip-norm 10");
         Assert.Empty(parsed.Errors);
         Assert.True(parsed.GetValue<bool>("--mask-uploads"));
         Assert.Equal(1e-3, parsed.GetValue<double?>("--delta"));
+        Assert.Equal(2, parsed.GetValue<double?>("--clip-norm"));
+        Assert.Equal(10, parsed.GetValue<double?>("--upload-clip-norm"));
     }
 
     [Fact]
@@ -84,7 +88,7 @@ public sealed class SweepCommandTests
         string dir = Path.Combine(Path.GetTempPath(), "fedgrid-sweep-dp-" + Guid.NewGuid().ToString("N"));
         var stdout = new StringWriter();
         var stderr = new StringWriter();
-        int code = SweepCommand.Run("plain,dp", "1,4", 1, dir, asJson: true, stdout, stderr);
+        int code = SweepCommand.Run("plain,dp", "1,4", 1, dir, asJson: true, stdout, stderr, dpSettings: new DpSettings(ClipNorm: 2, UploadClipNorm: 10));
         try
         {
             Assert.True(code == 0, stderr.ToString());
@@ -102,6 +106,14 @@ public sealed class SweepCommandTests
             // The noisy partial sums hide base load better than plain's clear ones.
             Assert.True(rows[2].GetProperty("partialSumsExposureRatio").GetDouble() > rows[0].GetProperty("partialSumsExposureRatio").GetDouble());
             Assert.True(Directory.Exists(Path.Combine(dir, "dp-z4")));
+            // The dp runs got the sweep's clipping norms; plain, which has none, was run without them.
+            using (JsonDocument dpSummary = JsonDocument.Parse(File.ReadAllText(Path.Combine(dir, "dp-z4", "summary.json"))))
+            {
+                Assert.Equal(2, dpSummary.RootElement.GetProperty("clipNorm").GetDouble());
+                Assert.Equal(10, dpSummary.RootElement.GetProperty("uploadClipNorm").GetDouble());
+            }
+            using (JsonDocument plainSummary = JsonDocument.Parse(File.ReadAllText(Path.Combine(dir, "plain", "summary.json"))))
+                Assert.False(plainSummary.RootElement.TryGetProperty("clipNorm", out _));
         }
         finally { Directory.Delete(dir, true); }
     }

@@ -23,6 +23,12 @@ namespace FedGrid.Cli.Commands;
 /// <param name="Folder">Run folder.</param>
 /// <param name="Delta">δ of the run's (ε, δ), or null where no DP is applied.</param>
 /// <param name="MaskUploads">Whether the run masked its uploads.</param>
+/// <summary>The dp runs' own options of a sweep, passed to the train verb for the dp schemes only (null: its default).</summary>
+/// <param name="Delta">δ of the (ε, δ) (--delta).</param>
+/// <param name="ClipNorm">Clipping norm of each partial-sums vector (--clip-norm).</param>
+/// <param name="UploadClipNorm">Clipping norm of each round's shared-parameter update (--upload-clip-norm).</param>
+internal sealed record DpSettings(double? Delta = null, double? ClipNorm = null, double? UploadClipNorm = null);
+
 internal sealed record SweepRow(string Scheme, double? NoiseMultiplier, double? Epsilon, double? SavingsCapturedPct, long ViolationSlots,
     double? PartialSumsExposureRatio, double? UploadsExposureRatio, string Folder, double? Delta = null, bool MaskUploads = false);
 
@@ -48,19 +54,22 @@ internal static class SweepCommand
         var json = new Option<bool>("--json") { Description = "print only the rows as a JSON array on stdout" };
         var maskUploads = new Option<bool>("--mask-uploads") { Description = $"mask the uploads of the {MaskedSumsScheme.SchemeName} and {DifferentiallyPrivateScheme.MaskedSchemeName} runs too (the train verb's --mask-uploads; other schemes run as usual)" };
         var delta = new Option<double?>("--delta") { Description = $"δ of the dp runs' (ε, δ), in (0, 1) (default {DifferentialPrivacySettings.DefaultDelta}; other schemes ignore it)" };
+        var clip = new Option<double?>("--clip-norm") { Description = "the dp runs' clipping norm of each partial-sums vector (the train verb's --clip-norm; other schemes ignore it)" };
+        var uploadClip = new Option<double?>("--upload-clip-norm") { Description = "the dp runs' clipping norm of each round's shared-parameter update (the train verb's --upload-clip-norm; other schemes ignore it)" };
         var cmd = new Command("sweep", "Train and audit every scheme × noise combination; write a table and a privacy–utility plot (exposure of the most exposed household vs savings captured).")
         {
-            schemes, noise, days, outDir, json, maskUploads, delta,
+            schemes, noise, days, outDir, json, maskUploads, delta, clip, uploadClip,
         };
         cmd.SetAction(parse => Run(parse.GetValue(schemes)!, parse.GetValue(noise), parse.GetValue(days), parse.GetValue(outDir), parse.GetValue(json), Console.Out, Console.Error,
-            parse.GetValue(maskUploads), parse.GetValue(delta)));
+            parse.GetValue(maskUploads), new DpSettings(parse.GetValue(delta), parse.GetValue(clip), parse.GetValue(uploadClip))));
         return cmd;
     }
 
     /// <summary>Parses the lists, runs every combination, writes the table and the plot; returns the exit code.</summary>
     public static int Run(string schemeList, string? noiseList, int days, string? outDir, bool asJson, TextWriter stdout, TextWriter progress,
-        bool maskUploads = false, double? delta = null)
+        bool maskUploads = false, DpSettings? dpSettings = null)
     {
+        double? delta = dpSettings?.Delta;
         if (delta is { } dl && !(dl > 0 && dl < 1)) throw new UserInputException($"--delta must lie strictly between 0 and 1, got {dl}");
         string[] schemes = schemeList.Split(',', StringSplitOptions.RemoveEmptyEntries | StringSplitOptions.TrimEntries);
         if (schemes.Length == 0) throw new UserInputException("--scheme: give at least one scheme");
@@ -80,7 +89,7 @@ internal static class SweepCommand
         // Every option is checked by the train verb itself before any run starts.
         if (maskUploads && !combos.Any(c => FederationSchemes.CanMaskUploads(c.Scheme)))
             throw new UserInputException($"--mask-uploads: none of the schemes ({string.Join(",", schemes)}) masks; it applies to {MaskedSumsScheme.SchemeName} and {DifferentiallyPrivateScheme.MaskedSchemeName}");
-        TrainOptions Options(string scheme, double? noise) => SweepCommand.Options(scheme, noise, days, dir, maskUploads, delta);
+        TrainOptions Options(string scheme, double? noise) => SweepCommand.Options(scheme, noise, days, dir, maskUploads, dpSettings);
         foreach (var (s, z) in combos) TrainFederated.Validate(Options(s, z));
         var rows = new List<SweepRow>();
         for (int i = 0; i < combos.Count; i++)
@@ -131,12 +140,13 @@ internal static class SweepCommand
         return values.Distinct().ToArray();
     }
 
-    private static TrainOptions Options(string scheme, double? noise, int days, string dir, bool maskUploads, double? delta)
+    private static TrainOptions Options(string scheme, double? noise, int days, string dir, bool maskUploads, DpSettings? dpSettings)
     {
         bool masked = maskUploads && FederationSchemes.CanMaskUploads(scheme);
         bool dp = FederationSchemes.IsDifferentiallyPrivate(scheme);
         return new(TrainFederated.Mode, "actor-critic", Days: days, OutDir: Path.Combine(dir, Label(scheme, noise, masked)), Json: true,
-            Federated: new FederatedTrainOptions(scheme, NoiseMultiplier: noise, MaskUploads: masked, Delta: dp ? delta : null));
+            Federated: new FederatedTrainOptions(scheme, NoiseMultiplier: noise, MaskUploads: masked, Delta: dp ? dpSettings?.Delta : null,
+                ClipNorm: dp ? dpSettings?.ClipNorm : null, UploadClipNorm: dp ? dpSettings?.UploadClipNorm : null));
     }
 
     private static string Label(string scheme, double? noise, bool maskUploads) =>
