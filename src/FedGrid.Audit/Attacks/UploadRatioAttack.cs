@@ -193,24 +193,12 @@ public static class UploadRatioAttack
         for (int m = 0; m < view.Households.Count; m++)
         {
             HouseholdView h = view.Households[m];
-            if (!h.Rounds.Any(r => r.Updates.Count > 0))
-            {
-                if (h.Rounds.Any(r => r.MaskedUpload))
-                {
-                    // Masked uploads: like masked partial sums, the channel yields nothing of this household; the attacker keeps its prior.
-                    masked++;
-                    foreach (Quantity q in AuditNames.Quantities)
-                    {
-                        if (view.FeatureIndex(q) < 0) continue;
-                        var (pe, pv) = AttackPrior.Fallback(view, options, m, q);
-                        reconstructions.Add(new Reconstruction(Channel.Uploads, Name, q, m, pe, pv));
-                    }
-                    identifiability.Add(new Identifiability(m, Channel.Uploads, Name, 0, n, double.NaN, double.NaN,
-                        $"not observable: {h.Rounds.Count(r => r.MaskedUpload)} round(s) of masked uploads (ring words whose masks cancel only in the round's sum); no individual update to invert, the prior is kept"));
-                }
-                continue;
-            }
-            attacked++;
+            bool hasUpdates = h.Rounds.Any(r => r.Updates.Count > 0);
+            // Masked uploads: like masked partial sums, the channel yields nothing of this household; the attacker keeps its prior.
+            int maskedRounds = hasUpdates ? 0 : h.Rounds.Count(r => r.MaskedUpload);
+            if (!hasUpdates && maskedRounds == 0) continue;
+            if (hasUpdates) attacked++;
+            else masked++;
             var est = new Dictionary<Quantity, (double[] E, double[] V)>();
             foreach (Quantity q in AuditNames.Quantities)
                 if (view.FeatureIndex(q) >= 0) est[q] = AttackPrior.Fallback(view, options, m, q);
@@ -269,6 +257,7 @@ public static class UploadRatioAttack
             }
             foreach (var (q, e) in est) reconstructions.Add(new Reconstruction(Channel.Uploads, Name, q, m, e.E, e.V));
             identifiability.Add(new Identifiability(m, Channel.Uploads, Name, usedRounds > 0 ? 1 : 0, n, double.NaN, double.NaN,
+                !hasUpdates ? $"not observable: {maskedRounds} round(s) of masked uploads (ring words whose masks cancel only in the round's sum); no individual update to invert, the prior is kept" :
                 usedRounds == 0 ? "no round had a usable first-layer update (zero bias change, noise-like or sign-like updates)" + (rejected > 0 ? $"; {rejected} round(s) rejected as noise" : "") + (signRounds > 0 ? $"; {signRounds} round(s) sign-like (adaptive optimiser)" : "") :
                 $"{usedRounds} round(s) with first-layer updates, at least {minRows} informative row(s) each; exact for one local sample, a weighted mean of the round's samples otherwise"
                 + (intervalRounds > 0 ? $"; {intervalRounds} round(s) consistent with one sample's step within float32 rounding use the set-membership (interval) estimate" : "")
