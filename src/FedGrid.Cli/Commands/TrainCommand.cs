@@ -23,7 +23,13 @@ internal sealed record TrainOutcome(TrainingRun Run, TrainingSummary Summary, IR
 
 /// <summary>Everything a training mode gets from the command line.</summary>
 internal sealed record TrainContext(Scenario Scenario, LearnerKind Learner, ulong Seed, string Folder, TextWriter Progress,
-    FederatedTrainOptions? Federated = null, int? WarmStartDays = null);
+    FederatedTrainOptions? Federated = null, int? WarmStartDays = null)
+{
+    /// <summary>The actor-critic's warm-start days in a run of <paramref name="days"/> days (the default when not given, at most the run).</summary>
+    /// <param name="days">Days of the run.</param>
+    /// <returns>Days the price rule acts.</returns>
+    public int WarmStartDaysOf(int days) => Math.Min(days, WarmStartDays ?? TrainingDefaults.WarmStartDays);
+}
 
 /// <summary>
 /// <c>fedgrid train --mode centralized --learner actor-critic|q-learning|double-q</c>: trains a learner on the
@@ -158,7 +164,7 @@ internal static class TrainCommand
             FormattableString.Invariant($"train: {name}: day {d.Day}/{days} cost {d.Cost:0.00} $ (no control {noControl[d.Day - 1].Cost:0.00}) peak {d.PeakKw:0.0} kW projections {d.Projections}")));
         var summary = TrainingSummary.Create("centralized", run, noControl, oracle, c.Scenario.Tariff.Name, c.Scenario.Name, c.Scenario.Households.Length, c.Seed);
         if (c.Learner == LearnerKind.ActorCritic)
-            summary = summary with { Extra = [new("warmStartDays", Math.Min(days, c.WarmStartDays ?? TrainingDefaults.WarmStartDays))] };
+            summary = summary with { Extra = [new("warmStartDays", c.WarmStartDaysOf(days))] };
         return new TrainOutcome(run, summary, noControl, oracle, []);
     }
 

@@ -46,6 +46,13 @@ internal static class TrainFederated
 
     private static string AggregationList => string.Join(", ", Aggregations.Select(a => a.Key));
 
+    /// <summary>The <c>--aggregation</c> option's value (mean when not given) and its rule name in <see cref="UploadAggregators"/>.</summary>
+    private static (string Option, string Rule) Aggregation(FederatedTrainOptions f)
+    {
+        string option = f.Aggregation ?? Aggregations[0].Key;
+        return (option, Aggregations.First(a => a.Key == option).Value);
+    }
+
     public static (Option[] Options, Func<ParseResult, FederatedTrainOptions> Read) CreateOptions()
     {
         var scheme = new Option<string?>("--scheme")
@@ -112,7 +119,7 @@ internal static class TrainFederated
             throw new UserInputException($"--aggregation: unknown rule '{f.Aggregation}'; use {AggregationList}");
         try
         {
-            FederationSchemes.CheckMaskUploads(scheme, f.MaskUploads, Aggregations.First(a => a.Key == (f.Aggregation ?? Aggregations[0].Key)).Value);
+            FederationSchemes.CheckMaskUploads(scheme, f.MaskUploads, Aggregation(f).Rule);
         }
         catch (ArgumentException e)
         {
@@ -150,13 +157,12 @@ internal static class TrainFederated
             throw new UserInputException($"--min-quorum {q} exceeds the scenario's {households} households");
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         var (noControl, oracle) = TrainCommand.Baselines(c);
-        string aggregation = f.Aggregation ?? Aggregations[0].Key;
-        string rule = Aggregations.First(a => a.Key == aggregation).Value;
+        (string aggregation, string rule) = Aggregation(f);
         double trim = f.TrimFraction ?? UploadAggregators.DefaultTrimFraction;
         IFederationScheme scheme = FederationSchemes.FromName(f.Scheme ?? ClearScheme.PlainName, () => UploadAggregators.Create(rule, trim), Privacy(f), f.MaskUploads);
         // The centralized actor-critic's settings, seed and warm start (the price rule acts on the first days, then each
         // household clones it on its own rows): the same budget and starting point.
-        int warmDays = Math.Min(days, c.WarmStartDays ?? TrainingDefaults.WarmStartDays);
+        int warmDays = c.WarmStartDaysOf(days);
         int stepsPerRound = f.StepsPerRound ?? SlotCalendar.SlotsPerDay;
         if (warmDays * SlotCalendar.SlotsPerDay % stepsPerRound != 0)
             throw new UserInputException($"--warm-start-days {warmDays} ({warmDays * SlotCalendar.SlotsPerDay} steps) is not a whole number of rounds of --steps-per-round {stepsPerRound}");
