@@ -9,8 +9,9 @@ using FedGrid.Learning.Randomness;
 namespace FedGrid.Bench.Versus;
 
 /// <summary>
-/// Whole in-process federated runs of the default scenario (32 households) as <c>fedgrid train --mode federated</c> runs
-/// them: the CLI's learner settings and seed, transcript and ground truth written to a temporary folder (deleted after).
+/// Whole in-process federated runs of the default scenario (32 households) with the train verb's learner settings and
+/// seed but the library's federation defaults (no warm start from the price rule, optimiser moments reset at every
+/// broadcast — what the hosts run too), transcript and ground truth written to a temporary folder (deleted after).
 /// </summary>
 internal static class FederatedRunVersusCases
 {
