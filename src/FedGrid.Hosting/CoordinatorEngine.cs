@@ -695,16 +695,16 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         _pendingCount = 0;
         CoordinatorPhase before = _coordinator.Phase;
         bool admitting = before == CoordinatorPhase.Admitting;
-        if (_coordinator.AtRoundStart && AwaitedRejoins() > 0)
+        if (_coordinator.AtRoundStart)
         {
             // The round's first partial sums go in: the dropped households not back yet rejoin at a later round start.
-            _log.LogWarning("round {Round} starts without {Count} households dropped before; they may rejoin at a later round start", _coordinator.Round, AwaitedRejoins());
+            int awaited = AwaitedRejoins();
             Array.Clear(_awaitRejoin);
-            SettleRoundStart();
-        }
-        else if (_coordinator.AtRoundStart)
-        {
-            Array.Clear(_awaitRejoin);
+            if (awaited > 0)
+            {
+                _log.LogWarning("round {Round} starts without {Count} households dropped before; they may rejoin at a later round start", _coordinator.Round, awaited);
+                SettleRoundStart();
+            }
         }
         lock (_gate)
         {

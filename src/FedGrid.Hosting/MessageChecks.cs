@@ -187,10 +187,7 @@ public sealed class MessageChecks
 
     private static void Vector(Google.Protobuf.Collections.RepeatedField<float> values, int length, string field)
     {
-        if (values.Count != length)
-        {
-            throw Invalid($"{field} holds {values.Count} floats; the run's networks need {length}");
-        }
+        Length(values.Count, length, field, "floats");
         Values(values, field);
     }
 
