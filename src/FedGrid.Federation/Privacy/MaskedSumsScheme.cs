@@ -221,6 +221,24 @@ public sealed class MaskedSumsScheme : IFederationScheme
         }
     }
 
+    /// <summary>
+    /// The collected shares as the unmasker takes them; null when no household is being recovered (every step without a
+    /// dropout, so closing it allocates nothing).
+    /// </summary>
+    private static Dictionary<int, IReadOnlyList<ShamirShare>>? SharesOf(Dictionary<int, List<ShamirShare>> collected)
+    {
+        if (collected.Count == 0)
+        {
+            return null;
+        }
+        var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(collected.Count);
+        foreach ((int d, List<ShamirShare> list) in collected)
+        {
+            shares[d] = list;
+        }
+        return shares;
+    }
+
     private static MaskContext Context(PartialSums message, int channel) => new(message.Round, message.Step, channel);
 
     private static void CheckKey(ReadOnlySpan<byte> key, int household, string what)
@@ -676,12 +694,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
                 }
                 unmasker.Add(r.Household, v);
             }
-            var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(_uploadShares.Count);
-            foreach ((int d, List<ShamirShare> list) in _uploadShares)
-            {
-                shares[d] = list;
-            }
-            MaskedSumResult result = unmasker.Complete(shares, _uploadTotal);
+            MaskedSumResult result = unmasker.Complete(SharesOf(_uploadShares), _uploadTotal);
             int[] pending = [.. _uploadPending];
             _uploadPending.Clear();
             _uploadShares.Clear();
@@ -996,11 +1009,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             {
                 throw new ProtocolException("masked sums: no partial sums in the step");
             }
-            var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(_shares.Count);
-            foreach ((int d, List<ShamirShare> list) in _shares)
-            {
-                shares[d] = list;
-            }
+            IReadOnlyDictionary<int, IReadOnlyList<ShamirShare>>? shares = SharesOf(_shares);
             MaskedSumResult a = _actor!.Complete(shares, _actorTotal);
             MaskedSumResult c = _critic!.Complete(shares, _criticTotal);
             _round = -1;
