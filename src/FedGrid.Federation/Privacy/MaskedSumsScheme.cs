@@ -602,6 +602,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private readonly int _n, _threshold;
         private readonly byte[]?[] _mask, _share;
         private readonly bool[] _excluded, _rejoining, _shared;
+        private readonly Google.Protobuf.ByteString _session;
         private bool _directorySent;
         private int _round;
 
@@ -617,6 +618,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _rejoining = new bool[households];
             _shared = new bool[households];
             _combiner = new TotalCombiner(scheme, households, actorSums, criticSums, threshold);
+            _session = Google.Protobuf.ByteString.CopyFrom(scheme._sessionId);
         }
 
         public IPartialSumsCombiner PartialSums => _combiner;
@@ -845,7 +847,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         {
             _round = round;
             _combiner.BeginRound();
-            var update = new MaskedSumsKeys { SessionId = Google.Protobuf.ByteString.CopyFrom(_scheme._sessionId), Threshold = _threshold, Round = round };
+            MaskedSumsKeys update = KeysMessage(round);
             for (int k = 0; k < _n; k++)
             {
                 if (dropped[k] && !_excluded[k])
@@ -871,10 +873,13 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _rejoining[household] = true;
         }
 
+        /// <summary>A key-directory message of the round without entries: the session id and threshold every one carries.</summary>
+        private MaskedSumsKeys KeysMessage(int round) => new() { SessionId = _session, Threshold = _threshold, Round = round };
+
         /// <summary>The full directory (only = null) or the entry of one household.</summary>
         private MaskedSumsKeys Directory(int? only)
         {
-            var d = new MaskedSumsKeys { SessionId = Google.Protobuf.ByteString.CopyFrom(_scheme._sessionId), Threshold = _threshold, Round = _round };
+            MaskedSumsKeys d = KeysMessage(_round);
             for (int k = 0; k < _n; k++)
             {
                 if (only is { } o && o != k)
