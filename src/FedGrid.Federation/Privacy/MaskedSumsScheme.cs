@@ -901,7 +901,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private readonly int _households, _na, _nc, _threshold;
         private readonly double[] _actorTotal, _criticTotal;
         private readonly ulong[] _scratch;
-        private readonly bool[] _excluded, _unrecoverable;
+        private readonly bool[] _unrecoverable;
         private readonly List<int> _pending = [];
         private readonly Dictionary<int, List<ShamirShare>> _shares = [];
         private MaskedSumUnmasker? _actor, _critic;
@@ -919,7 +919,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _actorTotal = new double[actorSums];
             _criticTotal = new double[criticSums];
             _scratch = new ulong[Math.Max(actorSums, criticSums)];
-            _excluded = new bool[households];
             _unrecoverable = new bool[households];
         }
 
@@ -934,7 +933,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
 
         public void Exclude(int household)
         {
-            _excluded[household] = true;
             _actor!.Exclude(household);
             _critic!.Exclude(household);
         }
@@ -943,7 +941,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
         {
             _actor!.Replace(household, maskKey);
             _critic!.Replace(household, maskKey);
-            _excluded[household] = false;
         }
 
         public void Begin()
@@ -963,7 +960,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             {
                 throw new ProtocolException($"masked sums: household {household} sent clear partial sums");
             }
-            if (_excluded[household] || _actor!.IsRevealed(household))
+            if (_actor!.IsExcluded(household) || _actor.IsRevealed(household))
             {
                 throw new ProtocolException($"masked sums: household {household} is out of the masks (dropped, its key rebuilt or excluded); it must rejoin with new keys");
             }
@@ -988,7 +985,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             bool lost = false;
             foreach (int d in missing)
             {
-                if (_excluded[d] || _actor!.IsRevealed(d))
+                if (_actor!.IsExcluded(d) || _actor.IsRevealed(d))
                 {
                     continue;
                 }
