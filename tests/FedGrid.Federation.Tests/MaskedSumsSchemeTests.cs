@@ -31,8 +31,8 @@ public sealed class MaskedSumsSchemeTests
         Assert.Equal(MaskedSumsScheme.SchemeName, r.Scheme);
         Assert.Equal(96, scheme.CompletedSums);
         Assert.True(r.AggregatedRounds >= 2);
-        Check(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
-        Check(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
+        ParameterAssert.Close(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
+        ParameterAssert.Close(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
         // Training actually moved the parameters (the comparison is not of two untouched initialisations).
         var fresh = new InProcessFederation(TestRuns.Default(), new FederatedRunOptions { Scheme = ClearScheme.Plain(), Federation = TestRuns.Options(stepsPerRound: 48) }, new RecordingTranscript());
         fresh.Start();
@@ -55,8 +55,8 @@ public sealed class MaskedSumsSchemeTests
         FederatedRunResult r = masked.Run();
         Assert.True(r.AggregatedRounds >= 2);
         Assert.Equal(p.AggregatedRounds, r.AggregatedRounds);
-        Check(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
-        Check(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
+        ParameterAssert.Close(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
+        ParameterAssert.Close(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
         Assert.Equal(p.Run.Days[0].Cost, r.Run.Days[0].Cost, 6);
     }
 
@@ -86,17 +86,5 @@ public sealed class MaskedSumsSchemeTests
         Assert.True(chi2 < 37.70, $"chi-square {chi2:F2} over {words.Length} words");
         // The clear partial sums are small fixed-point numbers: their top bits are all 0 or all 1, far from uniform.
         Assert.True(words.Count(w => w >> 60 is 0 or 15) < words.Length * 0.5);
-    }
-
-    private static void Check(ReadOnlySpan<float> expected, ReadOnlySpan<float> actual, string what)
-    {
-        Assert.Equal(expected.Length, actual.Length);
-        double worst = 0, scale = 0;
-        for (int i = 0; i < expected.Length; i++)
-        {
-            worst = Math.Max(worst, Math.Abs(expected[i] - actual[i]));
-            scale = Math.Max(scale, Math.Abs(expected[i]));
-        }
-        Assert.True(worst <= 1e-6 * scale, $"{what}: largest difference {worst:G3} against largest |parameter| {scale:G3}");
     }
 }

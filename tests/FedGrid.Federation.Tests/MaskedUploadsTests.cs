@@ -168,8 +168,8 @@ public sealed class MaskedUploadsTests
         Assert.False(scheme.ColumnsInUploads);
         // The first-layer columns and the output heads stay home under masked uploads: the households' own W_m and heads
         // are the model's.
-        Compare(clear.Coordinator.Actor.Parameters, WithOwnParts(masked, actor: true), "actor");
-        Compare(clear.Coordinator.Critic.Parameters, WithOwnParts(masked, actor: false), "critic");
+        ParameterAssert.Close(clear.Coordinator.Actor.Parameters, WithOwnParts(masked, actor: true), "actor");
+        ParameterAssert.Close(clear.Coordinator.Critic.Parameters, WithOwnParts(masked, actor: false), "critic");
         Assert.True(scheme.HeadsStayHome);
         Assert.Equal(clear.Days[0].Cost, masked.Days[0].Cost, 6);
         // Every upload in the transcript is masked ring words only; every training call names the participants.
@@ -210,8 +210,8 @@ public sealed class MaskedUploadsTests
         var masked = new InProcessFederation(TestRuns.Default(), Options(scheme), sink);
         masked.Run();
         ModelBroadcast a = FirstAggregate(clearSink), b = FirstAggregate(sink);
-        Compare([.. OutsideHeads(a.ActorParameters, masked.Coordinator.Actor, true)], [.. OutsideHeads(b.ActorParameters, masked.Coordinator.Actor, true)], "actor");
-        Compare([.. OutsideHeads(a.CriticParameters, masked.Coordinator.Critic, false)], [.. OutsideHeads(b.CriticParameters, masked.Coordinator.Critic, false)], "critic");
+        ParameterAssert.Close([.. OutsideHeads(a.ActorParameters, masked.Coordinator.Actor, true)], [.. OutsideHeads(b.ActorParameters, masked.Coordinator.Actor, true)], "actor");
+        ParameterAssert.Close([.. OutsideHeads(a.CriticParameters, masked.Coordinator.Critic, false)], [.. OutsideHeads(b.CriticParameters, masked.Coordinator.Critic, false)], "critic");
         var dp = (DifferentiallyPrivateScheme)scheme;
         Assert.Equal(2 * 64, dp.UpdatesReleased); // still noised: two updates per upload
         Assert.True(dp.HeadsStayHome);
@@ -243,8 +243,8 @@ public sealed class MaskedUploadsTests
         // the output heads, which stay home under masked uploads).
         ModelBroadcast a = FirstAggregate(clearSink), b = FirstAggregate(sink);
         Assert.Equal(a.Contributors, b.Contributors);
-        Compare([.. OutsideHeads(a.ActorParameters, masked.Coordinator.Actor, true)], [.. OutsideHeads(b.ActorParameters, masked.Coordinator.Actor, true)], "actor broadcast");
-        Compare([.. OutsideHeads(a.CriticParameters, masked.Coordinator.Critic, false)], [.. OutsideHeads(b.CriticParameters, masked.Coordinator.Critic, false)], "critic broadcast");
+        ParameterAssert.Close([.. OutsideHeads(a.ActorParameters, masked.Coordinator.Actor, true)], [.. OutsideHeads(b.ActorParameters, masked.Coordinator.Actor, true)], "actor broadcast");
+        ParameterAssert.Close([.. OutsideHeads(a.CriticParameters, masked.Coordinator.Critic, false)], [.. OutsideHeads(b.CriticParameters, masked.Coordinator.Critic, false)], "critic broadcast");
         // The 15 came back with fresh keys and took part in round 1.
         Assert.Equal(15, masked.Coordinator.Rejoins);
     }
@@ -324,17 +324,5 @@ public sealed class MaskedUploadsTests
                 net.Parameters.Slice(o, n).CopyTo(p.AsSpan(o, n));
         }
         return p;
-    }
-
-    private static void Compare(ReadOnlySpan<float> expected, ReadOnlySpan<float> actual, string what)
-    {
-        Assert.Equal(expected.Length, actual.Length);
-        double worst = 0, scale = 0;
-        for (int i = 0; i < expected.Length; i++)
-        {
-            worst = Math.Max(worst, Math.Abs(expected[i] - actual[i]));
-            scale = Math.Max(scale, Math.Abs(expected[i]));
-        }
-        Assert.True(worst <= 1e-6 * scale, $"{what}: largest difference {worst:G3} against largest |parameter| {scale:G3}");
     }
 }

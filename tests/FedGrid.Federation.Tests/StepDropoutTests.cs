@@ -216,8 +216,8 @@ public sealed class StepDropoutTests
         Assert.Equal(32 + 1 + 1 + Enumerable.Range(0, 15).Sum(i => 1 + 17 + i + 1), sink.Records.Count(r => r.Kind() == RecordKind.MaskedKeys));
         Assert.Equal(17 * 2, sink.Records.Count(r => r.Kind() == RecordKind.Recovery));
         // Same dropouts, same seed: the plain model up to fixed-point rounding (issue 7: at most 1e-6 relative).
-        Close(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters);
-        Close(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters);
+        ParameterAssert.Close(plain.Coordinator.Actor.Parameters, masked.Coordinator.Actor.Parameters, "actor");
+        ParameterAssert.Close(plain.Coordinator.Critic.Parameters, masked.Coordinator.Critic.Parameters, "critic");
     }
 
     [Fact]
@@ -273,17 +273,6 @@ public sealed class StepDropoutTests
         Assert.Throws<ProtocolException>(() => KeyShareCipher.Decrypt(holder, owner.PublicKey, session, 7, 3, c));
         c[5] ^= 1;
         Assert.Throws<ProtocolException>(() => KeyShareCipher.Decrypt(holder, owner.PublicKey, session, 3, 7, c));
-    }
-
-    private static void Close(ReadOnlySpan<float> expected, ReadOnlySpan<float> actual)
-    {
-        double worst = 0, scale = 0;
-        for (int i = 0; i < expected.Length; i++)
-        {
-            worst = Math.Max(worst, Math.Abs(expected[i] - actual[i]));
-            scale = Math.Max(scale, Math.Abs(expected[i]));
-        }
-        Assert.True(worst <= 1e-6 * scale, $"largest difference {worst:G3} against largest |parameter| {scale:G3}");
     }
 
     private sealed class NullOutbox : ICoordinatorOutbox

@@ -221,6 +221,24 @@ public sealed class MaskedSumsScheme : IFederationScheme
         }
     }
 
+    /// <summary>
+    /// The collected shares as the unmasker takes them; null when no household is being recovered (every step without a
+    /// dropout, so closing it allocates nothing).
+    /// </summary>
+    private static Dictionary<int, IReadOnlyList<ShamirShare>>? SharesOf(Dictionary<int, List<ShamirShare>> collected)
+    {
+        if (collected.Count == 0)
+        {
+            return null;
+        }
+        var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(collected.Count);
+        foreach ((int d, List<ShamirShare> list) in collected)
+        {
+            shares[d] = list;
+        }
+        return shares;
+    }
+
     private static MaskContext Context(PartialSums message, int channel) => new(message.Round, message.Step, channel);
 
     private static void CheckKey(ReadOnlySpan<byte> key, int household, string what)
@@ -584,6 +602,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private readonly int _n, _threshold;
         private readonly byte[]?[] _mask, _share;
         private readonly bool[] _excluded, _rejoining, _shared;
+        private readonly Google.Protobuf.ByteString _session;
         private bool _directorySent;
         private int _round;
 
@@ -599,6 +618,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _rejoining = new bool[households];
             _shared = new bool[households];
             _combiner = new TotalCombiner(scheme, households, actorSums, criticSums, threshold);
+            _session = Google.Protobuf.ByteString.CopyFrom(scheme._sessionId);
         }
 
         public IPartialSumsCombiner PartialSums => _combiner;
@@ -676,12 +696,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
                 }
                 unmasker.Add(r.Household, v);
             }
-            var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(_uploadShares.Count);
-            foreach ((int d, List<ShamirShare> list) in _uploadShares)
-            {
-                shares[d] = list;
-            }
-            MaskedSumResult result = unmasker.Complete(shares, _uploadTotal);
+            MaskedSumResult result = unmasker.Complete(SharesOf(_uploadShares), _uploadTotal);
             int[] pending = [.. _uploadPending];
             _uploadPending.Clear();
             _uploadShares.Clear();
@@ -832,7 +847,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         {
             _round = round;
             _combiner.BeginRound();
-            var update = new MaskedSumsKeys { SessionId = Google.Protobuf.ByteString.CopyFrom(_scheme._sessionId), Threshold = _threshold, Round = round };
+            MaskedSumsKeys update = KeysMessage(round);
             for (int k = 0; k < _n; k++)
             {
                 if (dropped[k] && !_excluded[k])
@@ -858,10 +873,13 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _rejoining[household] = true;
         }
 
+        /// <summary>A key-directory message of the round without entries: the session id and threshold every one carries.</summary>
+        private MaskedSumsKeys KeysMessage(int round) => new() { SessionId = _session, Threshold = _threshold, Round = round };
+
         /// <summary>The full directory (only = null) or the entry of one household.</summary>
         private MaskedSumsKeys Directory(int? only)
         {
-            var d = new MaskedSumsKeys { SessionId = Google.Protobuf.ByteString.CopyFrom(_scheme._sessionId), Threshold = _threshold, Round = _round };
+            MaskedSumsKeys d = KeysMessage(_round);
             for (int k = 0; k < _n; k++)
             {
                 if (only is { } o && o != k)
@@ -883,7 +901,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
         private readonly int _households, _na, _nc, _threshold;
         private readonly double[] _actorTotal, _criticTotal;
         private readonly ulong[] _scratch;
-        private readonly bool[] _excluded, _unrecoverable;
+        private readonly bool[] _unrecoverable;
         private readonly List<int> _pending = [];
         private readonly Dictionary<int, List<ShamirShare>> _shares = [];
         private MaskedSumUnmasker? _actor, _critic;
@@ -901,7 +919,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
             _actorTotal = new double[actorSums];
             _criticTotal = new double[criticSums];
             _scratch = new ulong[Math.Max(actorSums, criticSums)];
-            _excluded = new bool[households];
             _unrecoverable = new bool[households];
         }
 
@@ -916,7 +933,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
 
         public void Exclude(int household)
         {
-            _excluded[household] = true;
             _actor!.Exclude(household);
             _critic!.Exclude(household);
         }
@@ -925,7 +941,6 @@ public sealed class MaskedSumsScheme : IFederationScheme
         {
             _actor!.Replace(household, maskKey);
             _critic!.Replace(household, maskKey);
-            _excluded[household] = false;
         }
 
         public void Begin()
@@ -945,7 +960,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             {
                 throw new ProtocolException($"masked sums: household {household} sent clear partial sums");
             }
-            if (_excluded[household] || _actor!.IsRevealed(household))
+            if (_actor!.IsExcluded(household) || _actor.IsRevealed(household))
             {
                 throw new ProtocolException($"masked sums: household {household} is out of the masks (dropped, its key rebuilt or excluded); it must rejoin with new keys");
             }
@@ -970,7 +985,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             bool lost = false;
             foreach (int d in missing)
             {
-                if (_excluded[d] || _actor!.IsRevealed(d))
+                if (_actor!.IsExcluded(d) || _actor.IsRevealed(d))
                 {
                     continue;
                 }
@@ -996,11 +1011,7 @@ public sealed class MaskedSumsScheme : IFederationScheme
             {
                 throw new ProtocolException("masked sums: no partial sums in the step");
             }
-            var shares = new Dictionary<int, IReadOnlyList<ShamirShare>>(_shares.Count);
-            foreach ((int d, List<ShamirShare> list) in _shares)
-            {
-                shares[d] = list;
-            }
+            IReadOnlyDictionary<int, IReadOnlyList<ShamirShare>>? shares = SharesOf(_shares);
             MaskedSumResult a = _actor!.Complete(shares, _actorTotal);
             MaskedSumResult c = _critic!.Complete(shares, _criticTotal);
             _round = -1;

@@ -379,13 +379,7 @@ public sealed class PairwiseMasker : IDisposable
         {
             throw new ArgumentException($"participant flags for {participants.Length} households must include household {Household} of {_pairs.Length}", nameof(participants));
         }
-        for (int k = 0; k < _pairs.Length; k++)
-        {
-            if (participants[k] && _pairs[k] is { } stream)
-            {
-                PairwiseMask.Apply(stream, context, Household, k, _scratch, encoded);
-            }
-        }
+        AddMasks(context, encoded, participants, everyone: false);
     }
 
     /// <summary>Makes room for vectors of <paramref name="maxLength"/> values (allocates once when longer than before).</summary>
@@ -408,11 +402,14 @@ public sealed class PairwiseMasker : IDisposable
         }
     }
 
-    private void AddMasks(MaskContext context, Span<ulong> vector)
+    private void AddMasks(MaskContext context, Span<ulong> vector) => AddMasks(context, vector, default, everyone: true);
+
+    /// <summary>Adds the masks of every agreed pair (m, k), of the peers <paramref name="participants"/> marks only unless <paramref name="everyone"/>.</summary>
+    private void AddMasks(MaskContext context, Span<ulong> vector, ReadOnlySpan<bool> participants, bool everyone)
     {
         for (int k = 0; k < _pairs.Length; k++)
         {
-            if (_pairs[k] is { } stream)
+            if ((everyone || participants[k]) && _pairs[k] is { } stream)
             {
                 PairwiseMask.Apply(stream, context, Household, k, _scratch, vector);
             }
