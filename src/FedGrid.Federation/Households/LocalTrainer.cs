@@ -273,9 +273,9 @@ public sealed class LocalTrainer
                     ReadOnlySpan<float> lo = buffer.LowerRow(i), hi = buffer.UpperRow(i), target = buffer.PreSquashRow(i);
                     for (int j = 0; j < k; j++)
                     {
-                        if (!(hi[j] - lo[j] > 1e-6f))
+                        if (!ActorCriticLearner.HasCloneTarget(lo[j], hi[j]))
                         {
-                            continue; // an empty box: no action to clone (ActorCriticLearner.CloneTarget)
+                            continue; // an empty box: no action to clone
                         }
                         int mean = 2 * k * _m + j;
                         float d = _actorOut[mean] - target[j];

@@ -340,11 +340,17 @@ public sealed class ActorCriticLearner
     public static float CloneTarget(float action, float lower, float upper, float edge, out bool active)
     {
         float width = upper - lower;
-        active = width > 1e-6f;
+        active = HasCloneTarget(lower, upper);
         float limit = MathF.Tanh(edge);
         float y = active ? Math.Clamp(2f * (action - lower) / width - 1f, -limit, limit) : 0f;
         return MathF.Atanh(y);
     }
+
+    /// <summary>Whether a box is wide enough (width &gt; 1e-6) for <see cref="CloneTarget"/>'s target to mean anything (its <c>active</c>).</summary>
+    /// <param name="lower">Lower bound of the box.</param>
+    /// <param name="upper">Upper bound of the box.</param>
+    /// <returns>True for a box that is not empty.</returns>
+    public static bool HasCloneTarget(float lower, float upper) => upper - lower > 1e-6f;
 
     /// <summary>
     /// Warm start from a demonstrator's transitions (behaviour cloning for the actor, policy evaluation for the

@@ -65,12 +65,7 @@ public sealed class Adam : IOptimiser
     public void Step(Span<float> parameters, ReadOnlySpan<float> gradient, ReadOnlySpan<(int Offset, int Length)> ranges)
     {
         CheckLengths(parameters, gradient);
-        foreach (var (o, n) in ranges)
-        {
-            ArgumentOutOfRangeException.ThrowIfNegative(o);
-            ArgumentOutOfRangeException.ThrowIfNegative(n);
-            ArgumentOutOfRangeException.ThrowIfGreaterThan(o + n, _m.Length);
-        }
+        OptimiserRanges.Check(ranges, _m.Length);
         Advance(out double c1, out double c2);
         foreach (var (o, n) in ranges)
         {

@@ -29,3 +29,20 @@ public interface IOptimiser
     /// <summary>Forgets moment estimates and the step count (e.g. after the federated layer replaces the parameters).</summary>
     void Reset();
 }
+
+/// <summary>Argument checks shared by the optimisers' ranged <see cref="IOptimiser.Step(Span{float}, ReadOnlySpan{float}, ReadOnlySpan{ValueTuple{int, int}})"/>.</summary>
+internal static class OptimiserRanges
+{
+    /// <summary>Throws unless every (offset, length) range lies inside a vector of <paramref name="count"/> parameters.</summary>
+    /// <param name="ranges">(offset, length) ranges.</param>
+    /// <param name="count">Parameters the optimiser was sized for.</param>
+    public static void Check(ReadOnlySpan<(int Offset, int Length)> ranges, int count)
+    {
+        foreach (var (o, n) in ranges)
+        {
+            ArgumentOutOfRangeException.ThrowIfNegative(o);
+            ArgumentOutOfRangeException.ThrowIfNegative(n);
+            ArgumentOutOfRangeException.ThrowIfGreaterThan(o + n, count);
+        }
+    }
+}

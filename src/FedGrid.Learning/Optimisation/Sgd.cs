@@ -46,12 +46,7 @@ public sealed class Sgd : IOptimiser
     public void Step(Span<float> parameters, ReadOnlySpan<float> gradient, ReadOnlySpan<(int Offset, int Length)> ranges)
     {
         CheckLengths(parameters, gradient);
-        foreach (var (o, n) in ranges)
-        {
-            ArgumentOutOfRangeException.ThrowIfNegative(o);
-            ArgumentOutOfRangeException.ThrowIfNegative(n);
-            ArgumentOutOfRangeException.ThrowIfGreaterThan(o + n, _velocity.Length);
-        }
+        OptimiserRanges.Check(ranges, _velocity.Length);
         StepCount++;
         foreach (var (o, n) in ranges)
         {
