@@ -47,15 +47,7 @@ public sealed class HostedRunTests
         string dir = Directory.CreateTempSubdirectory("fedgrid-step-timeout-").FullName;
         string transcript = Path.Combine(dir, "run.fgt");
         await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(5), stepTimeout: TimeSpan.FromSeconds(1), transcript: transcript);
-        using var leave = new CancellationTokenSource();
-        var hosts = Small.CreateScenario().Households
-            .Select(h => Task.Run(() => new HouseholdHost(Small, h.Id, NullLogger.Instance).RunAsync(c.Address, h.Id == "H03" ? leave.Token : CancellationToken.None))).ToArray();
-        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(c.Channel());
-        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < 30)
-        {
-            await Task.Delay(20);
-        }
-        await leave.CancelAsync(); // household H03's connection drops mid-run
+        Task[] hosts = await c.RunHouseholdsOneLeavingAt(Small, "H03", step: 30); // household H03's connection drops mid-run
         CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(2));
         Assert.True(outcome.Ok, outcome.Error);
         Assert.Equal(96, outcome.Steps);

@@ -118,15 +118,7 @@ public sealed class MaskedSumsHostTests
         string dir = Directory.CreateTempSubdirectory("fedgrid-masked-dropout-").FullName;
         string transcript = Path.Combine(dir, "run.fgt");
         await using var c = await TestCoordinator.StartAsync(Masked, roundTimeout: TimeSpan.FromSeconds(5), stepTimeout: TimeSpan.FromSeconds(1), transcript: transcript);
-        using var leave = new CancellationTokenSource();
-        var hosts = Masked.CreateScenario().Households
-            .Select(h => Task.Run(() => new HouseholdHost(Masked, h.Id, NullLogger.Instance).RunAsync(c.Address, h.Id == "H03" ? leave.Token : CancellationToken.None))).ToArray();
-        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(c.Channel());
-        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < 30)
-        {
-            await Task.Delay(20);
-        }
-        await leave.CancelAsync();
+        Task[] hosts = await c.RunHouseholdsOneLeavingAt(Masked, "H03", step: 30);
         CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(3));
         Assert.True(outcome.Ok, outcome.Error);
         Assert.Equal(96, outcome.Steps);

@@ -3,6 +3,7 @@ using FedGrid.Hosting;
 using Grpc.Net.Client;
 using Microsoft.AspNetCore.Builder;
 using Microsoft.Extensions.Logging;
+using Microsoft.Extensions.Logging.Abstractions;
 
 namespace FedGrid.Hosting.Tests;
 
@@ -40,6 +41,26 @@ internal sealed class TestCoordinator : IAsyncDisposable
     }
 
     public GrpcChannel Channel() => GrpcChannel.ForAddress(Address, new GrpcChannelOptions { MaxSendMessageSize = null, MaxReceiveMessageSize = null });
+
+    /// <summary>
+    /// Runs every household of <paramref name="run"/> in this process against this coordinator and cuts household
+    /// <paramref name="leaving"/>'s connection once the run has reached step <paramref name="step"/>.
+    /// </summary>
+    /// <returns>The households' tasks, in household order.</returns>
+    public async Task<Task[]> RunHouseholdsOneLeavingAt(HostedRunSettings run, string leaving, long step)
+    {
+        var leave = new CancellationTokenSource();
+        Task[] hosts = run.CreateScenario().Households
+            .Select(h => Task.Run(() => new HouseholdHost(run, h.Id, NullLogger.Instance).RunAsync(Address, h.Id == leaving ? leave.Token : CancellationToken.None))).ToArray();
+        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(Channel());
+        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < step)
+        {
+            await Task.Delay(20);
+        }
+        await leave.CancelAsync(); // the household's connection drops mid-run
+        _ = Task.WhenAll(hosts).ContinueWith(_ => leave.Dispose(), TaskScheduler.Default); // the leaving host holds its token until it ends
+        return hosts;
+    }
 
     public bool Logged(string text)
     {
