@@ -66,66 +66,35 @@ public sealed class HostedRunTests
     {
         // Issue 8: "a household process killed (SIGKILL) mid-round: the coordinator times out, continues with the rest
         // above the quorum, records the dropout in the transcript". Real OS processes on loopback.
-        string dll = typeof(FedGrid.Cli.Commands.LaunchCommand).Assembly.Location;
-        string dir = Directory.CreateTempSubdirectory("fedgrid-kill-").FullName;
-        string result = Path.Combine(dir, "coordinator.json"), transcript = Path.Combine(dir, "run.fgt");
-        int port = Launcher.FreeLoopbackPort();
-        var processes = new List<Process>();
-        Process Start(params string[] args)
+        using var run = new ProcessRun("fedgrid-kill-");
+        string result = Path.Combine(run.Folder, "coordinator.json"), transcript = Path.Combine(run.Folder, "run.fgt");
+        HostProcess coordinator = run.Start("coordinator", ["coordinator", .. Small.ToArguments(), "--port", run.Port.ToString(System.Globalization.CultureInfo.InvariantCulture),
+            "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "2", "--round-timeout", "10"]);
+        using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(run.Address);
+        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
+        async Task<FedGrid.Hosting.Wire.RunStatus?> Poll()
         {
-            var info = new ProcessStartInfo("dotnet") { RedirectStandardOutput = true, RedirectStandardError = true };
-            info.ArgumentList.Add(dll);
-            foreach (string a in args.Concat(Small.ToArguments()))
-                info.ArgumentList.Add(a);
-            Process p = Process.Start(info)!;
-            p.OutputDataReceived += (_, _) => { };
-            p.ErrorDataReceived += (_, _) => { };
-            p.BeginOutputReadLine();
-            p.BeginErrorReadLine();
-            processes.Add(p);
-            return p;
+            try { return await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest()); }
+            catch (Grpc.Core.RpcException) { return null; }
         }
-        try
-        {
-            Process coordinator = Start("coordinator", "--port", port.ToString(System.Globalization.CultureInfo.InvariantCulture), "--insecure-loopback",
-                "--result", result, "--transcript", transcript, "--step-timeout", "2", "--round-timeout", "10");
-            string address = $"http://127.0.0.1:{port}";
-            using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(address);
-            var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
-            async Task<FedGrid.Hosting.Wire.RunStatus?> Poll()
-            {
-                try { return await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest()); }
-                catch (Grpc.Core.RpcException) { return null; }
-            }
-            var deadline = DateTime.UtcNow.AddMinutes(2);
-            while (await Poll() is null && DateTime.UtcNow < deadline)
-                await Task.Delay(100);
-            Process[] households = [.. Small.CreateScenario().Households.Select(h => Start("household", "--id", h.Id, "--coordinator", address, "--insecure-loopback"))];
-            while ((await Poll())?.Step is not >= 30 && DateTime.UtcNow < deadline && !coordinator.HasExited)
-                await Task.Delay(20);
-            households[2].Kill(); // SIGKILL on Linux
-            await coordinator.WaitForExitAsync().WaitAsync(TimeSpan.FromMinutes(2));
-            Assert.Equal(0, coordinator.ExitCode);
-            CoordinatorOutcome outcome = Launcher.ReadOutcome(result);
-            Assert.True(outcome.Ok, outcome.Error);
-            Assert.Equal(96, outcome.Steps);
-            Assert.Equal(4, outcome.Rounds);
-            using var reader = FedGrid.Federation.Transcripts.TranscriptReader.Open(transcript);
-            var events = reader.Records().Where(r => r.Event is not null).ToList();
-            var drop = events.Single(r => r.Event.Kind == FedGrid.Federation.Wire.EventKind.StepDropout);
-            Assert.Equal([2], drop.Event.Households);
-            Assert.True(drop.Step >= 30, $"dropped at step {drop.Step}");
-            Assert.Contains(events, r => r.Event.Kind == FedGrid.Federation.Wire.EventKind.RunCompleted);
-        }
-        finally
-        {
-            foreach (Process p in processes)
-            {
-                try { if (!p.HasExited) p.Kill(entireProcessTree: true); }
-                catch (InvalidOperationException) { }
-                p.Dispose();
-            }
-        }
+        var deadline = DateTime.UtcNow.AddMinutes(2);
+        while (await Poll() is null && DateTime.UtcNow < deadline)
+            await Task.Delay(100);
+        HostProcess[] households = [.. Small.CreateScenario().Households.Select(h => run.Start(h.Id, ["household", .. Small.ToArguments(), "--id", h.Id, "--coordinator", run.Address, "--insecure-loopback"]))];
+        while ((await Poll())?.Step is not >= 30 && DateTime.UtcNow < deadline && !coordinator.HasExited)
+            await Task.Delay(20);
+        households[2].Kill(); // SIGKILL on Linux
+        Assert.Equal(0, await coordinator.WaitForExit(TimeSpan.FromMinutes(2)));
+        CoordinatorOutcome outcome = Launcher.ReadOutcome(result);
+        Assert.True(outcome.Ok, outcome.Error);
+        Assert.Equal(96, outcome.Steps);
+        Assert.Equal(4, outcome.Rounds);
+        using var reader = FedGrid.Federation.Transcripts.TranscriptReader.Open(transcript);
+        var events = reader.Records().Where(r => r.Event is not null).ToList();
+        var drop = events.Single(r => r.Event.Kind == FedGrid.Federation.Wire.EventKind.StepDropout);
+        Assert.Equal([2], drop.Event.Households);
+        Assert.True(drop.Step >= 30, $"dropped at step {drop.Step}");
+        Assert.Contains(events, r => r.Event.Kind == FedGrid.Federation.Wire.EventKind.RunCompleted);
     }
 
     [Fact]
