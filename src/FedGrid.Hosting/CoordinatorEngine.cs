@@ -226,7 +226,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             _checkpointRound = _coordinator.Round;
             _watch.Start();
             _log.LogInformation("resumed from {Checkpoint}: round {Round}, step {Step}, {Dropped} households dropped at a step deadline; waiting for the households to rejoin",
-                _checkpoint, _coordinator.Round, _coordinator.Step + 1, _coordinator.DroppedCount);
+                _checkpoint, _coordinator.Round, _coordinator.Step + 1, DroppedCount());
         }
     }
 
@@ -448,7 +448,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             CoordinatorPhase.CollectingUploads => _expectedUploads,
             CoordinatorPhase.Admitting => _n,
             // At a round start the first step also waits for the households dropped in the round before (their rejoin).
-            _ => _n - _coordinator.DroppedCount + (_coordinator.AtRoundStart ? AwaitedRejoins() : 0),
+            _ => _n - DroppedCount() + (_coordinator.AtRoundStart ? AwaitedRejoins() : 0),
         };
         if (_pendingCount == 1 && _keyStage == KeyStage.None && phase is CoordinatorPhase.CollectingPartialSums or CoordinatorPhase.CollectingProjectionInputs)
         {
@@ -471,6 +471,15 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
         return a;
     }
 
+    private int DroppedCount()
+    {
+        int d = 0;
+        for (int h = 0; h < _n; h++)
+        {
+            d += _coordinator.IsDropped(h) ? 1 : 0;
+        }
+        return d;
+    }
 
     /// <summary>Schedules the deadline of a step's phase (with <see cref="CoordinatorHostOptions.StepTimeout"/>).</summary>
     private void ArmStepDeadline(long step, CoordinatorPhase phase)
@@ -500,7 +509,7 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             ArmStepDeadline(step, phase);
             return;
         }
-        _log.LogWarning("step {Step}: deadline passed in {Phase} with {Arrived} of {Expected} households", step, phase, _pendingCount, _n - _coordinator.DroppedCount);
+        _log.LogWarning("step {Step}: deadline passed in {Phase} with {Arrived} of {Expected} households", step, phase, _pendingCount, _n - DroppedCount());
         DeliverPending();
         if (!_finished && _coordinator.StepOpen && _coordinator.Phase == phase)
         {

@@ -214,9 +214,6 @@ public sealed class Coordinator
     /// <returns>True when dropped.</returns>
     public bool IsDropped(int household) => _dropped[household];
 
-    /// <summary>Households dropped now (out of the current round until they rejoin): the count of <see cref="IsDropped"/>.</summary>
-    public int DroppedCount => _droppedCount;
-
     /// <summary>Whether the scheme's coordinator side exchanges messages of its own (<see cref="ICoordinatorSchemeMessages"/>: a key agreement after admission, e.g. masked sums), which a transport must carry.</summary>
     public bool SchemeMessages => _schemeMessages is not null;
 
