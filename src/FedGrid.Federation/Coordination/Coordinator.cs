@@ -214,6 +214,9 @@ public sealed class Coordinator
     /// <returns>True when dropped.</returns>
     public bool IsDropped(int household) => _dropped[household];
 
+    /// <summary>The count of dropped households the machine keeps (its quorum checks read it); the tests check it against <see cref="IsDropped"/>.</summary>
+    internal int DroppedCount => _droppedCount;
+
     /// <summary>Whether the scheme's coordinator side exchanges messages of its own (<see cref="ICoordinatorSchemeMessages"/>: a key agreement after admission, e.g. masked sums), which a transport must carry.</summary>
     public bool SchemeMessages => _schemeMessages is not null;
 
