@@ -39,7 +39,7 @@ public sealed record CoordinatorHostOptions
     /// <summary>Fault injection for tests: after writing the checkpoint of this round the coordinator stops taking messages (as a process about to be killed); −1 for never.</summary>
     public int HoldAfterCheckpointRound { get; init; } = -1;
 
-    /// <summary>How long the run waits for a household that lost its connection to rejoin before it fails.</summary>
+    /// <summary>How long the run waits for a household that lost its connection to rejoin before it fails (with <see cref="StepTimeout"/>: before the step deadline drops it and the run goes on).</summary>
     public TimeSpan RejoinTimeout { get; init; } = TimeSpan.FromMinutes(5);
 
     /// <summary>Whether sessions come over mutual TLS: the client certificate must name the joining household (set by <see cref="CoordinatorHost.Build"/>).</summary>
@@ -856,6 +856,16 @@ public sealed class CoordinatorEngine : ICoordinatorOutbox, IDisposable
             {
                 return; // back, or dropped at a step deadline meanwhile (it may rejoin at a round start)
             }
+        }
+        if (_options.StepTimeout is not null)
+        {
+            // With a step deadline the run goes on without it: no longer waited for, the deadline drops it for the round.
+            _log.LogWarning("household {Index} ('{Id}') did not rejoin within {Seconds:0} s; the step deadline drops it", m, lost.Id, _options.RejoinTimeout.TotalSeconds);
+            lock (_gate)
+            {
+                _reconnecting[m] = false;
+            }
+            return;
         }
         _log.LogError("household {Index} ('{Id}') did not rejoin within {Seconds:0} s", m, lost.Id, _options.RejoinTimeout.TotalSeconds);
         _done.TrySetResult(Outcome(false, $"household '{lost.Id}' did not rejoin within {_options.RejoinTimeout.TotalSeconds:0} s"));

@@ -46,7 +46,10 @@ public sealed class HostedRunTests
     {
         string dir = Directory.CreateTempSubdirectory("fedgrid-step-timeout-").FullName;
         string transcript = Path.Combine(dir, "run.fgt");
-        await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(5), stepTimeout: TimeSpan.FromSeconds(1), transcript: transcript);
+        // The leave can land mid-step (the step deadline drops it) or, on a loaded machine, at a round start, where the
+        // coordinator first waits --rejoin-timeout for a lost connection; after that the step deadline drops it too.
+        await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(5), stepTimeout: TimeSpan.FromSeconds(1), transcript: transcript,
+            adjust: o => o with { RejoinTimeout = TimeSpan.FromSeconds(3) });
         Task[] hosts = await c.RunHouseholdsOneLeavingAt(Small, "H03", step: 30); // household H03's connection drops mid-run
         CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(2));
         Assert.True(outcome.Ok, outcome.Error);
@@ -69,7 +72,7 @@ public sealed class HostedRunTests
         using var run = new ProcessRun("fedgrid-kill-");
         string result = Path.Combine(run.Folder, "coordinator.json"), transcript = Path.Combine(run.Folder, "run.fgt");
         HostProcess coordinator = run.Start("coordinator", ["coordinator", .. Small.ToArguments(), "--port", run.Port.ToString(System.Globalization.CultureInfo.InvariantCulture),
-            "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "2", "--round-timeout", "10"]);
+            "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "2", "--round-timeout", "10", "--rejoin-timeout", "5"]);
         using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(run.Address);
         var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
         async Task<FedGrid.Hosting.Wire.RunStatus?> Poll()

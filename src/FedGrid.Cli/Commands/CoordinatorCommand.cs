@@ -19,7 +19,7 @@ internal static class CoordinatorCommand
         var json = new Option<bool>("--json") { Description = "print the outcome as JSON" };
         var state = new Option<string?>("--state") { Description = "run folder: a checkpoint (coordinator.ckpt) is written there atomically at every round end" };
         var resume = new Option<bool>("--resume") { Description = "continue the run from the checkpoint in --state (starts afresh when there is none); without it an existing checkpoint is refused" };
-        var rejoin = new Option<double>("--rejoin-timeout") { Description = "seconds to wait for a household that lost its connection to rejoin (default 300)", DefaultValueFactory = _ => 300 };
+        var rejoin = new Option<double>("--rejoin-timeout") { Description = "seconds to wait for a household that lost its connection to rejoin before the run fails, or with --step-timeout before the step deadline drops it (default 300)", DefaultValueFactory = _ => 300 };
         var insecure = HostOptions.InsecureLoopback();
         var tls = HostOptions.Tls();
         var cmd = new Command("coordinator", "Run the coordinator host of a multi-process federated run (gRPC).");
