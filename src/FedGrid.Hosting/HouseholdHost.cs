@@ -88,6 +88,9 @@ public sealed class HouseholdHost
     /// <summary>Fault injection for tests: before this decision step the household sends nothing (a gateway that stalls) until the coordinator drops it at the step deadline; −1 for never.</summary>
     public long StallBeforeStep { get; init; } = -1;
 
+    /// <summary>Fault injection for tests: before this decision step the household drops its connection at once and ends its run with an <see cref="OperationCanceledException"/> (a gateway switched off for good); −1 for never.</summary>
+    public long LeaveBeforeStep { get; init; } = -1;
+
     /// <summary>Fault injection for tests: after the drop of <see cref="StallBeforeStep"/> the household waits for this task before it rejoins (null: at once).</summary>
     public Task? StallRelease { get; init; }
 
@@ -197,7 +200,7 @@ public sealed class HouseholdHost
         {
             await ConverseAsync(call, cancel);
         }
-        catch (Exception e) when (e is not RpcException { StatusCode: StatusCode.Aborted } && !cancel.IsCancellationRequested)
+        catch (Exception e) when (e is not RpcException { StatusCode: StatusCode.Aborted } and not LeftForGoodException && !cancel.IsCancellationRequested)
         {
             // A write or read failed: when the call ended with the drop notice (e.g. the household wrote after a stall,
             // into a call the coordinator had ended), report the notice rather than the transport error.
@@ -466,6 +469,11 @@ public sealed class HouseholdHost
         {
             return true;
         }
+        if (_step == LeaveBeforeStep)
+        {
+            _log.LogWarning("household '{Id}': leaving before step {Step} (fault injection)", _id, _step);
+            throw new LeftForGoodException($"household '{_id}' left before step {_step} (fault injection)");
+        }
         if (_step == StallBeforeStep && !_stalled)
         {
             _stalled = true;
@@ -478,4 +486,7 @@ public sealed class HouseholdHost
         await send.WriteAsync(begin, cancel);
         return false;
     }
+
+    /// <summary>The <see cref="LeaveBeforeStep"/> fault: the call is ended at once (no wait for a drop notice) and the run is not retried.</summary>
+    private sealed class LeftForGoodException(string message) : OperationCanceledException(message);
 }

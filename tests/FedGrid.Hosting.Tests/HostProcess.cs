@@ -92,8 +92,8 @@ internal sealed class HostProcess : IDisposable
 
     public async Task<int> WaitForExit(TimeSpan limit)
     {
-        await _p.WaitForExitAsync().WaitAsync(limit);
-        _p.WaitForExit(); // the output's end
+        await _p.WaitForExitAsync().WaitAsync(limit); // the exit and the end of its output
+        _p.WaitForExit(TimeSpan.FromSeconds(10));
         return _p.ExitCode;
     }
 
@@ -114,7 +114,7 @@ internal sealed class HostProcess : IDisposable
         if (!_p.HasExited)
         {
             _p.Kill(entireProcessTree: true);
-            _p.WaitForExit();
+            _p.WaitForExit(TimeSpan.FromSeconds(30)); // bounded: a pipe held open elsewhere must not hold the suite
         }
     }
 

@@ -55,9 +55,37 @@ public sealed class HostedRunTests
         Assert.True(outcome.Ok, outcome.Error);
         Assert.Equal(96, outcome.Steps);
         Assert.Equal(4, outcome.Rounds);
-        await Assert.ThrowsAnyAsync<Exception>(() => hosts[2]);
+        await TestCoordinator.EndsWithError(hosts[2], TimeSpan.FromMinutes(1));
         await Task.WhenAll(hosts[..2]).WaitAsync(TimeSpan.FromMinutes(1));
         Assert.True(c.Logged("deadline passed"));
+        using var reader = FedGrid.Federation.Transcripts.TranscriptReader.Open(transcript);
+        var events = reader.Records().Where(r => r.Event is not null).Select(r => r.Event).ToList();
+        Assert.Contains(events, e => e.Kind == FedGrid.Federation.Wire.EventKind.StepDropout && e.Households.SequenceEqual([2]));
+        Assert.Contains(events, e => e.Kind == FedGrid.Federation.Wire.EventKind.RoundAggregated && !e.Households.Contains(2));
+    }
+
+    [Fact]
+    public async Task AHouseholdThatLeavesAtARoundStartIsWaitedForUpToTheRejoinTimeoutThenDroppedByTheStepDeadline()
+    {
+        // Regression: a household whose connection broke at a round start was waited for --rejoin-timeout (300 s by
+        // default) and then failed the run, even with --step-timeout set; the leave-mid-run test hung whenever its
+        // leave landed at a round start. Now the step deadline drops it once the rejoin window is over.
+        string dir = Directory.CreateTempSubdirectory("fedgrid-round-start-leave-").FullName;
+        string transcript = Path.Combine(dir, "run.fgt");
+        await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(5), stepTimeout: TimeSpan.FromSeconds(1), transcript: transcript,
+            adjust: o => o with { RejoinTimeout = TimeSpan.FromSeconds(2) });
+        int perRound = 96 / 4;
+        Task[] hosts = [.. Small.CreateScenario().Households.Select(h => Task.Run(() =>
+            new HouseholdHost(Small, h.Id, Microsoft.Extensions.Logging.Abstractions.NullLogger.Instance) { LeaveBeforeStep = h.Id == "H03" ? perRound : -1 }
+                .RunAsync(c.Address, CancellationToken.None)))];
+        CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(2));
+        Assert.True(outcome.Ok, outcome.Error);
+        Assert.Equal(96, outcome.Steps);
+        Assert.Equal(4, outcome.Rounds);
+        Assert.IsAssignableFrom<OperationCanceledException>(await TestCoordinator.EndsWithError(hosts[2], TimeSpan.FromMinutes(1)));
+        await Task.WhenAll(hosts[..2]).WaitAsync(TimeSpan.FromMinutes(1));
+        Assert.True(c.Logged("waiting up to 2 s for it to rejoin"));
+        Assert.True(c.Logged("did not rejoin within 2 s; the step deadline drops it"));
         using var reader = FedGrid.Federation.Transcripts.TranscriptReader.Open(transcript);
         var events = reader.Records().Where(r => r.Event is not null).Select(r => r.Event).ToList();
         Assert.Contains(events, e => e.Kind == FedGrid.Federation.Wire.EventKind.StepDropout && e.Households.SequenceEqual([2]));
@@ -103,17 +131,8 @@ public sealed class HostedRunTests
     [Fact]
     public async Task LaunchWithRealProcessesMatchesTheInProcessRun()
     {
-        string dll = typeof(FedGrid.Cli.Commands.LaunchCommand).Assembly.Location;
-        var info = new ProcessStartInfo("dotnet") { RedirectStandardOutput = true, RedirectStandardError = true };
-        foreach (string a in new[] { dll, "launch", "--households", "3", "--days", "1", "--seed", "7", "--steps-per-round", "24", "--json" })
-        {
-            info.ArgumentList.Add(a);
-        }
-        using Process p = Process.Start(info)!;
-        Task<string> stderr = p.StandardError.ReadToEndAsync();
-        string stdout = await p.StandardOutput.ReadToEndAsync();
-        await p.WaitForExitAsync().WaitAsync(TimeSpan.FromMinutes(3));
-        Assert.True(p.ExitCode == 0, await stderr);
+        var (code, stdout, stderr) = await CliRun.RunAsync(TimeSpan.FromMinutes(3), "launch", "--households", "3", "--days", "1", "--seed", "7", "--steps-per-round", "24", "--json");
+        Assert.True(code == 0, stderr);
         using JsonDocument d = JsonDocument.Parse(stdout);
         JsonElement r = d.RootElement;
         Assert.Equal(4, r.GetProperty("processes").GetInt32());
@@ -126,8 +145,7 @@ public sealed class HostedRunTests
         Assert.True(r.GetProperty("stepsPerSecond").GetDouble() > 0);
         Assert.True(r.GetProperty("bytesPerHouseholdPerStep").GetDouble() > 0);
         // The households' own log lines came through the launcher: they were separate processes.
-        string log = await stderr;
-        Assert.Contains("[H03]", log, StringComparison.Ordinal);
-        Assert.Contains("finished after 96 steps", log, StringComparison.Ordinal);
+        Assert.Contains("[H03]", stderr, StringComparison.Ordinal);
+        Assert.Contains("finished after 96 steps", stderr, StringComparison.Ordinal);
     }
 }

@@ -158,7 +158,7 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
             using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(address);
             var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
             var watch = System.Diagnostics.Stopwatch.StartNew();
-            while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < 30)
+            while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))).Step < 30)
             {
                 Assert.True(watch.Elapsed < TimeSpan.FromMinutes(3) && !coordinator.HasExited, coordinator.Output());
                 await Task.Delay(20);
@@ -219,9 +219,9 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
                     RemoteCertificateValidationCallback = ScenarioCertificates.ServerValidator(ScenarioCertificates.LoadCa(dir)),
                 };
                 using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(c.Address, new Grpc.Net.Client.GrpcChannelOptions { HttpHandler = handler });
-                using var call = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel).Session();
+                using var call = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel).Session(deadline: DateTime.UtcNow.AddMinutes(2)); // a stuck session fails with DEADLINE_EXCEEDED
                 await call.RequestStream.WriteAsync(new HouseholdMessage { HouseholdIndex = index, Rejoin = new RejoinRequest { LastRound = 0 } });
-                var e = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () => await call.ResponseStream.MoveNext(CancellationToken.None));
+                var e = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () => await call.ResponseStream.MoveNext(CancellationToken.None).WaitAsync(TimeSpan.FromMinutes(1)));
                 return e.StatusCode;
             }
             // H01's certificate asking to rejoin as household index 1 (H02): an impersonation.

@@ -52,14 +52,46 @@ internal sealed class TestCoordinator : IAsyncDisposable
         var leave = new CancellationTokenSource();
         Task[] hosts = run.CreateScenario().Households
             .Select(h => Task.Run(() => new HouseholdHost(run, h.Id, NullLogger.Instance).RunAsync(Address, h.Id == leaving ? leave.Token : CancellationToken.None))).ToArray();
-        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(Channel());
-        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest())).Step < step)
-        {
-            await Task.Delay(20);
-        }
+        await WaitForStep(step);
         await leave.CancelAsync(); // the household's connection drops mid-run
         _ = Task.WhenAll(hosts).ContinueWith(_ => leave.Dispose(), TaskScheduler.Default); // the leaving host holds its token until it ends
         return hosts;
+    }
+
+    /// <summary>Waits until the run has reached <paramref name="step"/>; fails (naming the log) when the run ends first or within 3 minutes does not get there.</summary>
+    public async Task WaitForStep(long step)
+    {
+        using var channel = Channel();
+        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
+        var watch = System.Diagnostics.Stopwatch.StartNew();
+        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))).Step < step)
+        {
+            if (Run.IsCompleted || watch.Elapsed > TimeSpan.FromMinutes(3))
+            {
+                throw new TimeoutException($"the run {(Run.IsCompleted ? "ended" : "is still")} before step {step}; its log:\n{string.Join("\n", Snapshot())}");
+            }
+            await Task.Delay(20);
+        }
+    }
+
+    /// <summary>
+    /// The exception a household host's run ended with: fails when it ends normally or is still running after
+    /// <paramref name="within"/> (a stuck host fails the test instead of holding the suite).
+    /// </summary>
+    public static async Task<Exception> EndsWithError(Task host, TimeSpan within)
+    {
+        Exception? e = await Record.ExceptionAsync(() => host.WaitAsync(within));
+        Assert.NotNull(e);
+        Assert.False(e is TimeoutException && !host.IsCompleted, $"the household host was still running after {within.TotalSeconds:0} s");
+        return e;
+    }
+
+    private List<string> Snapshot()
+    {
+        lock (Lines)
+        {
+            return [.. Lines];
+        }
     }
 
     public bool Logged(string text)

@@ -33,7 +33,7 @@ public sealed class ValidationTests
     {
         using var channel = c.Channel();
         var client = new FederationHost.FederationHostClient(channel);
-        using var call = client.Session();
+        using var call = client.Session(deadline: DateTime.UtcNow.AddMinutes(2)); // a stuck session fails with DEADLINE_EXCEEDED
         var received = new List<CoordinatorMessage>();
         try
         {
@@ -112,7 +112,12 @@ public sealed class ValidationTests
         // Two honest households hold H01 and H02; the third seat (H03) is the test's own session.
         var honest = new[] { "H01", "H02" }.Select(id => Task.Run(() => new HouseholdHost(run, id, NullLogger.Instance).RunAsync(c.Address, CancellationToken.None))).ToArray();
         var statusClient = new FederationHost.FederationHostClient(c.Channel());
-        while (statusClient.Status(new StatusRequest()).Connected < 2) await Task.Delay(20);
+        var watch = System.Diagnostics.Stopwatch.StartNew();
+        while (statusClient.Status(new StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30)).Connected < 2)
+        {
+            Assert.True(watch.Elapsed < TimeSpan.FromMinutes(2), "the two honest households did not connect");
+            await Task.Delay(20);
+        }
 
         // A second session for an id that is already connected (a duplicate or an impersonator without a certificate check).
         Assert.Equal(StatusCode.AlreadyExists, (await Send(c, Join("H01"))).Code);
@@ -121,7 +126,7 @@ public sealed class ValidationTests
         // The third household, driven by hand: it speaks as index 0 after being admitted as 2.
         using (var channel = c.Channel())
         {
-            var call = new FederationHost.FederationHostClient(channel).Session();
+            var call = new FederationHost.FederationHostClient(channel).Session(deadline: DateTime.UtcNow.AddMinutes(2)); // a stuck session fails with DEADLINE_EXCEEDED
             await call.RequestStream.WriteAsync(Join("H03"));
             Assert.True(await call.ResponseStream.MoveNext());
             Assert.Equal(2, call.ResponseStream.Current.Accepted.HouseholdIndex);
@@ -142,7 +147,7 @@ public sealed class ValidationTests
         var run = HostedRunTests.Small with { Households = 1 };
         await using var c = await TestCoordinator.StartAsync(run);
         using var channel = c.Channel();
-        var call = new FederationHost.FederationHostClient(channel).Session();
+        var call = new FederationHost.FederationHostClient(channel).Session(deadline: DateTime.UtcNow.AddMinutes(2)); // a stuck session fails with DEADLINE_EXCEEDED
         await call.RequestStream.WriteAsync(Join("H01"));
         Assert.True(await call.ResponseStream.MoveNext()); // accepted
         Assert.True(await call.ResponseStream.MoveNext()); // initial model
@@ -164,7 +169,7 @@ public sealed class ValidationTests
         var run = HostedRunTests.Small with { Households = 1 };
         await using var c = await TestCoordinator.StartAsync(run);
         using var channel = c.Channel();
-        var call = new FederationHost.FederationHostClient(channel).Session();
+        var call = new FederationHost.FederationHostClient(channel).Session(deadline: DateTime.UtcNow.AddMinutes(2)); // a stuck session fails with DEADLINE_EXCEEDED
         await call.RequestStream.WriteAsync(Join("H01"));
         Assert.True(await call.ResponseStream.MoveNext());
         Assert.True(await call.ResponseStream.MoveNext());
