@@ -1,50 +1,35 @@
+using FedGrid.Shared;
+
 namespace FedGrid.Grid.Numerics;
 
 /// <summary>
 /// A small seeded pseudo-random generator whose sequence is fixed by this code alone, so that
 /// a seed gives the same feeders, households and prices on every runtime and platform
-/// (<see cref="System.Random"/> makes no such promise across .NET versions). The generator is
-/// xoshiro256** (Blackman &amp; Vigna 2018), its 256-bit state filled from the 64-bit seed by
-/// SplitMix64 (Steele, Lea &amp; Flood 2014). Not cryptographic; not thread-safe. Allocation-free
-/// after construction.
+/// (<see cref="System.Random"/> makes no such promise across .NET versions). The bits come from the
+/// project's one xoshiro256** generator (<see cref="Xoshiro256StarStar"/>, shared with the learners'
+/// <c>LearningRandom</c>); this class adds the distributions the data generators use (Box–Muller normals,
+/// modulo-rejection integers), whose streams fix the default scenario. Not cryptographic; not thread-safe.
+/// Allocation-free after construction.
 /// </summary>
 public sealed class SeededRandom
 {
-    private ulong _s0, _s1, _s2, _s3;
+    private Xoshiro256StarStar _bits;
 
     /// <summary>Creates a generator from a seed; equal seeds give equal sequences.</summary>
-    public SeededRandom(ulong seed)
-    {
-        ulong sm = seed;
-        _s0 = SplitMix64(ref sm);
-        _s1 = SplitMix64(ref sm);
-        _s2 = SplitMix64(ref sm);
-        _s3 = SplitMix64(ref sm);
-    }
+    public SeededRandom(ulong seed) => _bits = new Xoshiro256StarStar(seed);
 
     /// <summary>A generator for one named sub-stream of a run: the same (seed, stream) pair always gives the same sequence, different streams are unrelated.</summary>
     public static SeededRandom ForStream(ulong seed, ulong stream)
     {
-        ulong sm = seed ^ (stream * 0xD1B54A32D192ED03UL);
-        return new SeededRandom(SplitMix64(ref sm));
+        ulong sm = Xoshiro256StarStar.StreamKey(seed, stream);
+        return new SeededRandom(Xoshiro256StarStar.SplitMix64(ref sm));
     }
 
     /// <summary>The next 64 uniformly distributed bits.</summary>
-    public ulong NextUInt64()
-    {
-        ulong result = RotateLeft(_s1 * 5, 7) * 9;
-        ulong t = _s1 << 17;
-        _s2 ^= _s0;
-        _s3 ^= _s1;
-        _s1 ^= _s2;
-        _s0 ^= _s3;
-        _s2 ^= t;
-        _s3 = RotateLeft(_s3, 45);
-        return result;
-    }
+    public ulong NextUInt64() => _bits.NextUInt64();
 
     /// <summary>A uniform double in [0, 1) with 53 random bits.</summary>
-    public double NextDouble() => (NextUInt64() >> 11) * (1.0 / (1UL << 53));
+    public double NextDouble() => _bits.NextDouble();
 
     /// <summary>A uniform double in [<paramref name="min"/>, <paramref name="max"/>).</summary>
     public double NextDouble(double min, double max) => min + (max - min) * NextDouble();
@@ -87,14 +72,4 @@ public sealed class SeededRandom
             if (r >= threshold) return r % n;
         }
     }
-
-    private static ulong SplitMix64(ref ulong state)
-    {
-        ulong z = state += 0x9E3779B97F4A7C15UL;
-        z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9UL;
-        z = (z ^ (z >> 27)) * 0x94D049BB133111EBUL;
-        return z ^ (z >> 31);
-    }
-
-    private static ulong RotateLeft(ulong x, int k) => (x << k) | (x >> (64 - k));
 }

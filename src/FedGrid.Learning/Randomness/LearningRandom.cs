@@ -1,36 +1,30 @@
+using FedGrid.Shared;
+
 namespace FedGrid.Learning.Randomness;
 
 /// <summary>
-/// Small deterministic pseudo-random generator for the learners: xoshiro256** (Blackman &amp; Vigna 2018)
-/// seeded through SplitMix64 (Steele, Lea &amp; Flood 2014). The same seed gives the same stream on every
-/// platform and runtime; it is not cryptographic.
+/// Small deterministic pseudo-random generator for the learners. The bits come from the project's one xoshiro256**
+/// generator (<see cref="Xoshiro256StarStar"/>, shared with the data generators' <c>SeededRandom</c>); this class adds
+/// the distributions the learners use (single-precision uniforms, Lemire integers, polar-method normals), whose streams
+/// fix every learner's initial weights and exploration, and checkpoints of the whole state. The same seed gives the
+/// same stream on every platform and runtime; it is not cryptographic.
 /// </summary>
 public sealed class LearningRandom
 {
-    private ulong _s0, _s1, _s2, _s3;
+    private Xoshiro256StarStar _bits;
     private bool _hasSpareNormal;
     private double _spareNormal;
 
     /// <summary>Creates a generator whose whole state is derived from <paramref name="seed"/>.</summary>
     /// <param name="seed">Any 64-bit value; equal seeds give equal streams.</param>
-    public LearningRandom(ulong seed)
-    {
-        ulong x = seed;
-        _s0 = SplitMix64(ref x);
-        _s1 = SplitMix64(ref x);
-        _s2 = SplitMix64(ref x);
-        _s3 = SplitMix64(ref x);
-    }
+    public LearningRandom(ulong seed) => _bits = new Xoshiro256StarStar(seed);
 
     /// <summary>Writes the generator's whole state (for a checkpoint).</summary>
     /// <param name="writer">Where to write.</param>
     public void WriteState(BinaryWriter writer)
     {
         ArgumentNullException.ThrowIfNull(writer);
-        writer.Write(_s0);
-        writer.Write(_s1);
-        writer.Write(_s2);
-        writer.Write(_s3);
+        _bits.WriteState(writer);
         writer.Write(_hasSpareNormal);
         writer.Write(_spareNormal);
     }
@@ -40,10 +34,7 @@ public sealed class LearningRandom
     public void ReadState(BinaryReader reader)
     {
         ArgumentNullException.ThrowIfNull(reader);
-        _s0 = reader.ReadUInt64();
-        _s1 = reader.ReadUInt64();
-        _s2 = reader.ReadUInt64();
-        _s3 = reader.ReadUInt64();
+        _bits.ReadState(reader);
         _hasSpareNormal = reader.ReadBoolean();
         _spareNormal = reader.ReadDouble();
     }
@@ -51,13 +42,7 @@ public sealed class LearningRandom
     /// <summary>One step of SplitMix64: advances <paramref name="state"/> and returns the mixed output.</summary>
     /// <param name="state">Generator state, advanced in place.</param>
     /// <returns>The next 64-bit output.</returns>
-    public static ulong SplitMix64(ref ulong state)
-    {
-        ulong z = state += 0x9E3779B97F4A7C15UL;
-        z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9UL;
-        z = (z ^ (z >> 27)) * 0x94D049BB133111EBUL;
-        return z ^ (z >> 31);
-    }
+    public static ulong SplitMix64(ref ulong state) => Xoshiro256StarStar.SplitMix64(ref state);
 
     /// <summary>Derives an independent child seed from a parent seed and a stream number (e.g. one stream per agent).</summary>
     /// <param name="seed">Parent seed.</param>
@@ -65,29 +50,18 @@ public sealed class LearningRandom
     /// <returns>A well-mixed seed for the child stream.</returns>
     public static ulong DeriveSeed(ulong seed, ulong stream)
     {
-        ulong x = seed ^ (stream * 0xD1B54A32D192ED03UL);
+        ulong x = Xoshiro256StarStar.StreamKey(seed, stream);
         SplitMix64(ref x);
         return SplitMix64(ref x);
     }
 
     /// <summary>Next raw 64-bit output of xoshiro256**.</summary>
     /// <returns>A uniformly distributed 64-bit value.</returns>
-    public ulong NextUInt64()
-    {
-        ulong result = RotateLeft(_s1 * 5, 7) * 9;
-        ulong t = _s1 << 17;
-        _s2 ^= _s0;
-        _s3 ^= _s1;
-        _s1 ^= _s2;
-        _s0 ^= _s3;
-        _s2 ^= t;
-        _s3 = RotateLeft(_s3, 45);
-        return result;
-    }
+    public ulong NextUInt64() => _bits.NextUInt64();
 
     /// <summary>Uniform double in [0, 1) with 53 random bits.</summary>
     /// <returns>A value in [0, 1).</returns>
-    public double NextDouble() => (NextUInt64() >> 11) * (1.0 / (1UL << 53));
+    public double NextDouble() => _bits.NextDouble();
 
     /// <summary>Uniform float in [0, 1) with 24 random bits.</summary>
     /// <returns>A value in [0, 1).</returns>
@@ -139,6 +113,4 @@ public sealed class LearningRandom
         _hasSpareNormal = true;
         return u * f;
     }
-
-    private static ulong RotateLeft(ulong x, int k) => (x << k) | (x >> (64 - k));
 }
