@@ -41,6 +41,7 @@ public class TrainCommandTests
             Assert.Contains(tariff == "real-time" ? "real-time" : "time-of-use", root.GetProperty("tariff").GetString());
             Assert.Equal(learner == "actor-critic", root.TryGetProperty("warmStartDays", out var warm));
             if (learner == "actor-critic") Assert.Equal(1, warm.GetInt32());
+            Assert.Equal(0, root.GetProperty("evaluationDays").GetInt32());
             Assert.Contains($"train: {learner}: day 2/2", err);
             Assert.Equal(output.Trim(), File.ReadAllText(Path.Combine(dir, "summary.json")).Trim());
             string[] daily = File.ReadAllLines(Path.Combine(dir, "daily.csv"));
@@ -86,6 +87,27 @@ public class TrainCommandTests
     {
         var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, learner, Days: 2, WarmStartDays: warm)));
         Assert.Contains(message, e.Message);
+    }
+    [Theory]
+    [InlineData("centralized", -1, "--evaluation-days must be 0 or more, got -1")]
+    [InlineData("federated", 1, "--evaluation-days applies to --mode centralized only")]
+    public void Evaluation_days_are_checked(string mode, int evaluation, string message)
+    {
+        var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, "actor-critic", Days: 2, EvaluationDays: evaluation)));
+        Assert.Contains(message, e.Message);
+    }
+
+    [Fact]
+    public void Evaluation_days_reach_the_summary()
+    {
+        var (code, output, _, dir) = Run(new TrainOptions("centralized", "q-learning", Days: 2, Seed: 3, Json: true, EvaluationDays: 1));
+        try
+        {
+            Assert.Equal(0, code);
+            using var doc = JsonDocument.Parse(output);
+            Assert.Equal(1, doc.RootElement.GetProperty("evaluationDays").GetInt32());
+        }
+        finally { Directory.Delete(dir, true); }
     }
 }
 

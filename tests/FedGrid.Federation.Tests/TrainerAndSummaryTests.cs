@@ -55,6 +55,31 @@ public class TrainerAndSummaryTests
     }
 
     [Fact]
+    public void Evaluation_days_act_without_learning_and_leave_the_days_before_them_alone()
+    {
+        CentralizedTrainer Trainer(LearnerKind kind, ulong seed, int? evaluation) =>
+            new(TwoDays, new TrainingOptions(kind, seed, WarmStartDays: 0, EvaluationDays: evaluation));
+        // Actor-critic: day 1 learns as before, day 2 acts on the policy's mean with no updates.
+        TrainingRun learning = Trainer(LearnerKind.ActorCritic, 5, null).Train(), evaluated = Trainer(LearnerKind.ActorCritic, 5, 1).Train();
+        Assert.Equal(2 * 96, learning.Updates);
+        Assert.Equal(96, evaluated.Updates);
+        Assert.Equal(learning.Days[0], evaluated.Days[0]);
+        Assert.NotEqual(learning.Days[1].Cost, evaluated.Days[1].Cost);
+        // Tabular, every day evaluated: greedy on untouched tables draws no random number, so the learner's seed no longer matters.
+        foreach (LearnerKind kind in (LearnerKind[])[LearnerKind.QLearning, LearnerKind.DoubleQ])
+        {
+            TrainingRun a = Trainer(kind, 5, 2).Train(), b = Trainer(kind, 6, 2).Train();
+            Assert.Equal(0, a.Updates);
+            Assert.Equal(a.Days.ToArray(), b.Days.ToArray());
+            Assert.NotEqual(Trainer(kind, 5, 0).Train().Days[0], Trainer(kind, 6, 0).Train().Days[0]); // exploring, they differ
+            Assert.Equal(96 * TwoDays.Households.Length, Trainer(kind, 5, 1).Train().Updates); // day 1 only
+        }
+        Assert.Equal(0, new TrainingOptions(LearnerKind.QLearning, EvaluationDays: 9).FirstEvaluationDay(2));
+        Assert.Equal(2, new TrainingOptions(LearnerKind.QLearning).FirstEvaluationDay(2)); // default: no evaluation window
+        Assert.Throws<ArgumentOutOfRangeException>(() => Trainer(LearnerKind.QLearning, 5, -1).Train());
+    }
+
+    [Fact]
     public void Savings_captured_is_the_share_of_the_gap_to_the_optimum()
     {
         // Hand-computed: no control 200 $/day, learner 170, optimum 150 → 100 × 30 / 50 = 60 %.

@@ -10,7 +10,8 @@ namespace FedGrid.Cli.Commands;
 
 /// <summary>Options of <c>fedgrid train</c>; null values take the defaults (or, with a scenario file, the file's).</summary>
 internal sealed record TrainOptions(string Mode, string Learner, string? ScenarioPath = null, string? Tariff = null, int? Days = null,
-    ulong? Seed = null, string? OutDir = null, bool Json = false, FederatedTrainOptions? Federated = null, int? WarmStartDays = null);
+    ulong? Seed = null, string? OutDir = null, bool Json = false, FederatedTrainOptions? Federated = null, int? WarmStartDays = null,
+    int? EvaluationDays = null);
 
 /// <summary>What a training mode hands back to the command for writing the run folder.</summary>
 /// <param name="Run">The learner's run.</param>
@@ -23,7 +24,7 @@ internal sealed record TrainOutcome(TrainingRun Run, TrainingSummary Summary, IR
 
 /// <summary>Everything a training mode gets from the command line.</summary>
 internal sealed record TrainContext(Scenario Scenario, LearnerKind Learner, ulong Seed, string Folder, TextWriter Progress,
-    FederatedTrainOptions? Federated = null, int? WarmStartDays = null)
+    FederatedTrainOptions? Federated = null, int? WarmStartDays = null, int? EvaluationDays = null)
 {
     /// <summary>The actor-critic's warm-start days in a run of <paramref name="days"/> days (the default when not given, at most the run).</summary>
     /// <param name="days">Days of the run.</param>
@@ -63,15 +64,19 @@ internal static class TrainCommand
         {
             Description = $"actor-critic (centralized or federated): days the price rule acts before the learner clones it and takes over (federated: each household on its own rows), 0 = none (default {TrainingDefaults.WarmStartDays})",
         };
+        var evaluation = new Option<int?>("--evaluation-days")
+        {
+            Description = $"centralized: last days on which the learner acts on what it learned, without exploring or learning (default {TrainingDefaults.EvaluationDays}; {TrainingSummary.FinalWindowDays} makes the final window an evaluation of the trained policy)",
+        };
         var (fedOptions, readFed) = TrainFederated.CreateOptions();
         var cmd = new Command("train", "Train a demand-response learner on the default scenario (or a scenario file) with the safety projection every slot; compare it with no control and the daily optimum on the same days.")
         {
-            mode, learner, scenario, tariff, days, seed, outDir, json, warm,
+            mode, learner, scenario, tariff, days, seed, outDir, json, warm, evaluation,
         };
         foreach (Option o in fedOptions) cmd.Options.Add(o);
         cmd.SetAction(parse => Run(new TrainOptions(parse.GetValue(mode)!, parse.GetValue(learner)!, parse.GetValue(scenario), parse.GetValue(tariff),
             parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json), readFed(parse),
-            parse.GetValue(warm)), Console.Out, Console.Error));
+            parse.GetValue(warm), parse.GetValue(evaluation)), Console.Out, Console.Error));
         return cmd;
     }
 
@@ -90,6 +95,9 @@ internal static class TrainCommand
         if (options.WarmStartDays is { } w && (w < 0 || learner != LearnerKind.ActorCritic))
             throw new UserInputException(w < 0 ? $"--warm-start-days must be 0 or more, got {w}"
                 : "--warm-start-days applies to --learner actor-critic only");
+        if (options.EvaluationDays is { } ev && (ev < 0 || options.Mode != "centralized"))
+            throw new UserInputException(ev < 0 ? $"--evaluation-days must be 0 or more, got {ev}"
+                : "--evaluation-days applies to --mode centralized only");
         if (options.ScenarioPath is not null && options.Days is not null)
             throw new UserInputException("--scenario takes its days from the file: drop --days");
 
@@ -110,7 +118,7 @@ internal static class TrainCommand
             throw new UserInputException($"--out: cannot create the run folder '{dir}': {e.Message}");
         }
 
-        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated, options.WarmStartDays));
+        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated, options.WarmStartDays, options.EvaluationDays));
         var files = new List<KeyValuePair<string, string>> { new("folder", dir), new("daily", "daily.csv"), new("plot", "convergence.png") };
         files.AddRange(outcome.ExtraFiles);
         byte[] json = RunFolder.Write(dir, outcome.Run.Days, outcome.Summary, files, DemoCommand.Cautions);
@@ -158,13 +166,17 @@ internal static class TrainCommand
     {
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         var (noControl, oracle) = Baselines(c);
-        var trainer = new CentralizedTrainer(c.Scenario, new TrainingOptions(c.Learner, c.Seed, WarmStartDays: c.WarmStartDays));
+        var trainOptions = new TrainingOptions(c.Learner, c.Seed, WarmStartDays: c.WarmStartDays, EvaluationDays: c.EvaluationDays);
+        var trainer = new CentralizedTrainer(c.Scenario, trainOptions);
         string name = LearnerNames.Of(c.Learner);
         TrainingRun run = trainer.Train(d => c.Progress.WriteLine(
             FormattableString.Invariant($"train: {name}: day {d.Day}/{days} cost {d.Cost:0.00} $ (no control {noControl[d.Day - 1].Cost:0.00}) peak {d.PeakKw:0.0} kW projections {d.Projections}")));
         var summary = TrainingSummary.Create("centralized", run, noControl, oracle, c.Scenario.Tariff.Name, c.Scenario.Name, c.Scenario.Households.Length, c.Seed);
+        var extra = new List<KeyValuePair<string, object>>();
         if (c.Learner == LearnerKind.ActorCritic)
-            summary = summary with { Extra = [new("warmStartDays", c.WarmStartDaysOf(days))] };
+            extra.Add(new("warmStartDays", c.WarmStartDaysOf(days)));
+        extra.Add(new("evaluationDays", days - trainOptions.FirstEvaluationDay(days)));
+        summary = summary with { Extra = extra };
         return new TrainOutcome(run, summary, noControl, oracle, []);
     }
 

@@ -54,8 +54,24 @@ public static class LearnerNames
 /// acts while the learner watches, before its warm start (<see cref="ActorCriticLearner.WarmStart"/>); those days'
 /// figures are the rule's. Null: <see cref="TrainingDefaults.WarmStartDays"/>; 0: none.
 /// </param>
+/// <param name="EvaluationDays">
+/// Days at the end of the horizon on which the learner acts without exploring and without learning (actor-critic: the
+/// policy's mean; tabular: the greedy action): the trained policy as it would be deployed, measured on days it did not
+/// train on. Their figures are the final window's when this equals <see cref="TrainingSummary.FinalWindowDays"/>.
+/// Null: <see cref="TrainingDefaults.EvaluationDays"/>; 0: the learner explores and learns to the last day.
+/// </param>
 public sealed record TrainingOptions(LearnerKind Learner, ulong Seed = 1, ActorCriticOptions? ActorCritic = null, TabularOptions? Tabular = null,
-    HouseholdTaskOptions? Task = null, int? WarmStartDays = null);
+    HouseholdTaskOptions? Task = null, int? WarmStartDays = null, int? EvaluationDays = null)
+{
+    /// <summary>The first day (0-based) of the evaluation window in a horizon of <paramref name="dayCount"/> days; <paramref name="dayCount"/> when there is none.</summary>
+    /// <param name="dayCount">Days of the horizon.</param>
+    public int FirstEvaluationDay(int dayCount)
+    {
+        int e = EvaluationDays ?? TrainingDefaults.EvaluationDays;
+        ArgumentOutOfRangeException.ThrowIfNegative(e, nameof(EvaluationDays));
+        return Math.Max(0, dayCount - e);
+    }
+}
 
 /// <summary>The settings this project tuned on the default scenario (60 days); see the README "Training" section.</summary>
 public static class TrainingDefaults
@@ -98,6 +114,9 @@ public static class TrainingDefaults
     /// instead of overwriting it (with 1e-3 the cloned policy fell apart within two weeks; see the README "Training").
     /// </summary>
     public static ActorCriticOptions WarmStartedActorCritic { get; } = ActorCritic with { ActorLearningRate = 1e-4 };
+
+    /// <summary>Days at the end on which the learner is evaluated rather than trained (see <see cref="TrainingOptions.EvaluationDays"/>).</summary>
+    public const int EvaluationDays = 0;
 
     /// <summary>Days of the price rule before the actor-critic's warm start (see <see cref="TrainingOptions.WarmStartDays"/>).</summary>
     public const int WarmStartDays = 1;
@@ -166,7 +185,8 @@ public sealed record TrainingRun(string Learner, ImmutableArray<DayMetrics> Days
 /// Trains one learner centrally (the coordinator sees every household's state) on the days of a scenario: one
 /// episode per simulated day, each day new data, the training budget is the scenario's number of days. Every
 /// slot's proposals go through the safety projection (<see cref="HouseholdControlTask"/>). The learner acts with
-/// exploration and learns as it goes, so a day's figures are the online cost of that day. The horizon is continuous:
+/// exploration and learns as it goes, so a day's figures are the online cost of that day, except on the evaluation days
+/// at the end (<see cref="TrainingOptions.EvaluationDays"/>), where it acts on what it learned without exploring or learning. The horizon is continuous:
 /// the learners bootstrap across midnight (deferred energy carries over) and stop at the end of the horizon.
 /// Seeded and deterministic.
 /// </summary>
@@ -268,21 +288,25 @@ public sealed class CentralizedTrainer
             WarmStartLoss = learner.WarmStart(states, lows, ups, acts, stepCosts, state, TrainingDefaults.WarmStartEpochs,
                 TrainingDefaults.WarmStartBatch, TrainingDefaults.WarmStartEdge, TrainingDefaults.WarmStartLearningRate);
         }
+        int day = Math.Min(warmDays, task.DayCount), evaluateFrom = Options.FirstEvaluationDay(task.DayCount);
         while (true)
         {
+            bool learn = day < evaluateFrom;
             task.GetBounds(lower, upper);
-            learner.Act(state, lower, upper, actions, explore: true);
+            learner.Act(state, lower, upper, actions, explore: learn);
             bool dayOver = task.Step(actions, costs);
             steps++;
             bool end = task.HorizonOver;
             if (!end) task.Observe(next);
-            if (learner.Record(costs, next, end)) updates++;
+            if (!learn) learner.DiscardRollout();
+            else if (learner.Record(costs, next, end)) updates++;
             (state, next) = (next, state);
             if (dayOver)
             {
                 onDay(task.LastDay!);
                 if (end) break;
                 task.NextDay();
+                day++;
             }
         }
         return (steps, updates);
@@ -305,12 +329,14 @@ public sealed class CentralizedTrainer
         task.Observe(state);
         for (int m = 0; m < n; m++) s[m] = discretiser.Index(state.AsSpan(m * k, k));
         long steps = 0, updates = 0;
+        int day = 0, evaluateFrom = Options.FirstEvaluationDay(task.DayCount);
         while (true)
         {
+            bool learn = day < evaluateFrom;
             task.GetBounds(lower, upper);
             for (int m = 0; m < n; m++)
             {
-                a[m] = controller.Learner(m).SelectAction(s[m]);
+                a[m] = learn ? controller.Learner(m).SelectAction(s[m]) : controller.Learner(m).GreedyAction(s[m]);
                 grid.Decode(a[m], lower.AsSpan(m, 1), upper.AsSpan(m, 1), actions.AsSpan(m, 1));
             }
             bool dayOver = task.Step(actions, costs);
@@ -320,8 +346,11 @@ public sealed class CentralizedTrainer
             for (int m = 0; m < n; m++)
             {
                 int next = end ? s[m] : discretiser.Index(state.AsSpan(m * k, k));
-                controller.Learner(m).Update(s[m], a[m], costs[m], next, end);
-                updates++;
+                if (learn)
+                {
+                    controller.Learner(m).Update(s[m], a[m], costs[m], next, end);
+                    updates++;
+                }
                 s[m] = next;
             }
             if (dayOver)
@@ -329,6 +358,7 @@ public sealed class CentralizedTrainer
                 onDay(task.LastDay!);
                 if (end) break;
                 task.NextDay();
+                day++;
             }
         }
         return (steps, updates);
