@@ -79,6 +79,9 @@ public sealed class HouseholdHost
     /// <summary>Fault injection for tests: in this round, after the checkpoint, the household holds its upload (as a gateway that hangs while training) until it is stopped; −1 for never.</summary>
     public int HoldUploadInRound { get; init; } = -1;
 
+    /// <summary>Fault injection for tests: ends the hold of <see cref="HoldUploadInRound"/> when it completes (null: held until stopped), as a gateway frozen at a round end and continued.</summary>
+    public Task? HoldUploadRelease { get; init; }
+
     /// <summary>Rejoins after a lost connection (restores from its checkpoint).</summary>
     public int Rejoins { get; private set; }
 
@@ -290,7 +293,7 @@ public sealed class HouseholdHost
                 if (message.Training.Round == HoldUploadInRound && message.Training.Selected)
                 {
                     _log.LogWarning("household '{Id}': holding the upload of round {Round} (fault injection)", _id, message.Training.Round);
-                    await Task.Delay(Timeout.Infinite, cancel);
+                    await (HoldUploadRelease ?? Task.Delay(Timeout.Infinite, cancel)).WaitAsync(cancel);
                 }
             }
             HouseholdMessage? reply = _agent.Receive(message);

@@ -20,26 +20,29 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
     // Generous: an honest household on this shared 2-core machine must never miss it; only the stalled one does.
     private static readonly TimeSpan StepTimeout = TimeSpan.FromSeconds(10);
 
-    /// <summary>The in-process run with household 1 offline from step 30 (before its partial sums), rejoining at the next round start or never.</summary>
-    private static string InProcessWithDropout(bool rejoin) => Convert.ToHexStringLower(Small.RunInProcess(o => o with
+    /// <summary>The in-process run with household 1 offline from <paramref name="step"/> (before its partial sums), rejoining at the next round start or never.</summary>
+    private static string InProcessWithDropout(bool rejoin, long step = 30) => Convert.ToHexStringLower(Small.RunInProcess(o => o with
     {
-        ScriptedDropouts = [new ScriptedDropout(1, 30)],
+        ScriptedDropouts = [new ScriptedDropout(1, step)],
         RejoinAfterDropout = rejoin,
     }).ModelSha256);
 
     private static HouseholdHost Host(string id, string? state = null, long stall = -1, Task? release = null) =>
         new(Small, id, NullLogger.Instance) { StateFolder = state, StallBeforeStep = stall, StallRelease = release };
 
-    [Fact]
-    public async Task AHouseholdStalledPastAStepDeadlineRejoinsAtTheNextRoundStartAndTheModelEqualsTheInProcessRunWithTheSameDropout()
+    [Theory]
+    [InlineData(30)] // mid-round 1
+    [InlineData(48)] // the first step of round 2 (seen in CI: a SIGSTOP that lands at a round start)
+    public async Task AHouseholdStalledPastAStepDeadlineRejoinsAtTheNextRoundStartAndTheModelEqualsTheInProcessRunWithTheSameDropout(int stallStep)
     {
+        int round = stallStep / 24;
         string dir = Directory.CreateTempSubdirectory("fedgrid-step-rejoin-").FullName;
         string transcript = Path.Combine(dir, "run.fgt");
         try
         {
             await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(60), stepTimeout: StepTimeout, transcript: transcript);
-            // H02 (index 1) stalls before step 30 (round 1): it sends nothing until the coordinator drops it at the deadline.
-            HouseholdHost[] hosts = [Host("H01"), Host("H02", stall: 30), Host("H03")];
+            // H02 (index 1) stalls before the step (in the given round): it sends nothing until the coordinator drops it at the deadline.
+            HouseholdHost[] hosts = [Host("H01"), Host("H02", stall: stallStep), Host("H03")];
             Task[] runs = [.. hosts.Select(h => Task.Run(() => h.RunAsync(c.Address, CancellationToken.None)))];
             CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(5));
             await Task.WhenAll(runs).WaitAsync(TimeSpan.FromMinutes(1));
@@ -48,29 +51,70 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
             Assert.Equal(4, outcome.AggregatedRounds); // above the quorum of 1 throughout
             Assert.Equal(1, hosts[1].DropoutRejoins);
             Assert.All(hosts, h => Assert.Equal(96, h.Steps));
-            Assert.True(c.Logged("rejoined at the start of round 2 after a step dropout"));
+            Assert.True(c.Logged($"rejoined at the start of round {round + 1} after a step dropout"));
 
             using TranscriptReader reader = TranscriptReader.Open(transcript);
             var records = reader.Records().ToList();
             Assert.True(reader.Completed);
             TranscriptRecord drop = Assert.Single(records, r => r.Event?.Kind == EventKind.StepDropout);
-            Assert.Equal((1, 30L), (drop.Round, drop.Step));
+            Assert.Equal((round, (long)stallStep), (drop.Round, drop.Step));
             Assert.Equal([1], drop.Event.Households);
             TranscriptRecord rejoined = Assert.Single(records, r => r.Event?.Kind == EventKind.Rejoined);
-            Assert.Equal(2, rejoined.Round);
+            Assert.Equal(round + 1, rejoined.Round);
             Assert.Equal([1], rejoined.Event.Households);
             // Its rejoin request went in at the round start, before the round's first partial sums.
             int request = records.FindIndex(r => r.Received?.BodyCase == HouseholdMessage.BodyOneofCase.Rejoin);
-            int firstSums = records.FindIndex(r => r.Round == 2 && r.Received?.BodyCase == HouseholdMessage.BodyOneofCase.PartialSums);
+            int firstSums = records.FindIndex(r => r.Round == round + 1 && r.Received?.BodyCase == HouseholdMessage.BodyOneofCase.PartialSums);
             Assert.InRange(request, 0, firstSums);
             Assert.Equal(1, records[request].Received.HouseholdIndex);
-            Assert.Equal(1, records[request].Received.Rejoin.LastRound);
-            Assert.DoesNotContain(1, records.Single(r => r.Round == 1 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households);
-            Assert.Contains(1, records.Single(r => r.Round == 2 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households);
+            Assert.Equal(round, records[request].Received.Rejoin.LastRound);
+            Assert.DoesNotContain(1, records.Single(r => r.Round == round && r.Event?.Kind == EventKind.RoundAggregated).Event.Households);
+            Assert.Contains(1, records.Single(r => r.Round == round + 1 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households);
 
             // The same scripted dropout in one process gives the same model bit for bit; the dropout changed the model.
-            Assert.Equal(InProcessWithDropout(rejoin: true), outcome.ModelSha256);
+            Assert.Equal(InProcessWithDropout(rejoin: true, stallStep), outcome.ModelSha256);
             Assert.NotEqual(Convert.ToHexStringLower(Small.RunInProcess().ModelSha256), outcome.ModelSha256);
+        }
+        finally
+        {
+            Directory.Delete(dir, recursive: true);
+        }
+    }
+
+    [Fact]
+    public async Task AHouseholdFrozenBeforeItsUploadMissesTheRoundThenTheNextStepAndRejoinsLikeTheInProcessRunWithAnUploadDropout()
+    {
+        // Seen in CI: a SIGSTOP that lands at a round end, before the upload. The round closes without it at the upload
+        // deadline, the next round's first step drops it, and once continued it rejoins at the round start after that.
+        string dir = Directory.CreateTempSubdirectory("fedgrid-upload-freeze-").FullName;
+        string transcript = Path.Combine(dir, "run.fgt");
+        try
+        {
+            var release = new TaskCompletionSource();
+            await using var c = await TestCoordinator.StartAsync(Small, roundTimeout: TimeSpan.FromSeconds(3), stepTimeout: TimeSpan.FromSeconds(2), transcript: transcript);
+            HouseholdHost[] hosts = [Host("H01"), new(Small, "H02", NullLogger.Instance) { HoldUploadInRound = 1, HoldUploadRelease = release.Task }, Host("H03")];
+            Task[] runs = [.. hosts.Select(h => Task.Run(() => h.RunAsync(c.Address, CancellationToken.None)))];
+            var watch = System.Diagnostics.Stopwatch.StartNew();
+            while (!c.Logged("was dropped from round"))
+            {
+                Assert.True(watch.Elapsed < TimeSpan.FromMinutes(2) && !c.Run.IsCompleted, string.Join("\n", c.Lines));
+                await Task.Delay(20);
+            }
+            release.SetResult();
+            CoordinatorOutcome outcome = await c.Run.WaitAsync(TimeSpan.FromMinutes(3));
+            await Task.WhenAll(runs).WaitAsync(TimeSpan.FromMinutes(1));
+            Assert.True(outcome.Ok, outcome.Error);
+            using TranscriptReader reader = TranscriptReader.Open(transcript);
+            var records = reader.Records().ToList();
+            TranscriptRecord drop = Assert.Single(records, r => r.Event?.Kind == EventKind.StepDropout);
+            Assert.Equal((2, 48L), (drop.Round, drop.Step));
+            Assert.DoesNotContain(1, records.Single(r => r.Round == 1 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households);
+            // In one process: the upload of round 1 lost (the household stays on), then a dropout before step 48's partial sums.
+            string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with
+            {
+                ScriptedDropouts = [new ScriptedDropout(1, 47, DropoutPoint.BeforeUpload), new ScriptedDropout(1, 48)],
+            }).ModelSha256);
+            Assert.Equal(inProcess, outcome.ModelSha256);
         }
         finally
         {
@@ -187,8 +231,16 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
             Assert.Equal(drop.Round + 1, rejoined.Round); // at the next round start, as in one process
             // Where the freeze caught it (the transcript says which phase's deadline it missed) gives the in-process script.
             DropoutPoint point = drop.Event.Detail.Contains("projection inputs", StringComparison.Ordinal) ? DropoutPoint.BeforeProjectionInputs : DropoutPoint.BeforePartialSums;
-            string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with { ScriptedDropouts = [new ScriptedDropout(1, drop.Step, point)] }).ModelSha256);
-            output.WriteLine($"SIGSTOP caught H02 at step {drop.Step} ({point}); rejoined in round {rejoined.Round}; model {outcome.ModelSha256}");
+            List<ScriptedDropout> script = [new ScriptedDropout(1, drop.Step, point)];
+            // A freeze that landed at the previous round's end, before the upload (seen in CI): that round closed without
+            // it at the upload deadline (the household stays a member), and the next step's deadline dropped it.
+            bool uploadLost = drop.Round > 0 && !records.Single(r => r.Round == drop.Round - 1 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households.Contains(1);
+            if (uploadLost)
+            {
+                script.Insert(0, new ScriptedDropout(1, (long)drop.Round * Small.StepsPerRound - 1, DropoutPoint.BeforeUpload));
+            }
+            string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with { ScriptedDropouts = script }).ModelSha256);
+            output.WriteLine($"SIGSTOP caught H02 at step {drop.Step} ({point}{(uploadLost ? ", its round-" + (drop.Round - 1) + " upload lost" : "")}); rejoined in round {rejoined.Round}; model {outcome.ModelSha256}");
             Assert.True(inProcess == outcome.ModelSha256, $"dropped at step {drop.Step} ({point}): hosted {outcome.ModelSha256}, in process {inProcess}");
         }
         finally
