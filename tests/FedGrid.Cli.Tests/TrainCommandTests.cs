@@ -41,6 +41,8 @@ public class TrainCommandTests
             Assert.Contains(tariff == "real-time" ? "real-time" : "time-of-use", root.GetProperty("tariff").GetString());
             Assert.Equal(learner == "actor-critic", root.TryGetProperty("warmStartDays", out var warm));
             if (learner == "actor-critic") Assert.Equal(1, warm.GetInt32());
+            Assert.Equal(learner == "actor-critic", root.TryGetProperty("warmStartRule", out var rule));
+            if (learner == "actor-critic") Assert.Equal("cheapest-period", rule.GetString());
             Assert.Equal(0, root.GetProperty("evaluationDays").GetInt32());
             Assert.Contains($"train: {learner}: day 2/2", err);
             Assert.Equal(output.Trim(), File.ReadAllText(Path.Combine(dir, "summary.json")).Trim());
@@ -94,6 +96,16 @@ public class TrainCommandTests
     public void Evaluation_days_are_checked(string mode, int evaluation, string message)
     {
         var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, "actor-critic", Days: 2, EvaluationDays: evaluation)));
+        Assert.Contains(message, e.Message);
+    }
+
+    [Theory]
+    [InlineData("centralized", "actor-critic", "flat", "--warm-start-rule: unknown rule 'flat'; use peak or cheapest-period")]
+    [InlineData("centralized", "q-learning", "peak", "--warm-start-rule applies to --mode centralized --learner actor-critic only")]
+    [InlineData("federated", "actor-critic", "peak", "--warm-start-rule applies to --mode centralized --learner actor-critic only")]
+    public void Warm_start_rule_is_checked(string mode, string learner, string rule, string message)
+    {
+        var e = Assert.Throws<UserInputException>(() => Run(new TrainOptions(mode, learner, Days: 2, WarmStartRule: rule)));
         Assert.Contains(message, e.Message);
     }
 

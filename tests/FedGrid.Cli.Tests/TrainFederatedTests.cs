@@ -54,15 +54,16 @@ public class TrainFederatedTests
     [Fact]
     public void On_the_warm_start_day_the_federated_run_costs_what_the_centralized_one_does()
     {
-        // Both warm-start from the same price rule on day 1 (default --warm-start-days 1), so the day's setpoints, the
-        // projection and hence the costs are the same; the federated households only clone the rule at the day's end.
+        // Both warm-start from the same price rule on day 1 (default --warm-start-days 1; the federated warm start's rule is
+        // the peak rule, which the centralized run is given), so the day's setpoints, the projection and hence the costs are
+        // the same; the federated households only clone the rule at the day's end.
         static double Cost(string mode)
         {
             string dir = Path.Combine(Path.GetTempPath(), "fedgrid-trainfed-warm-" + Guid.NewGuid().ToString("N"));
             var stdout = new StringWriter();
             try
             {
-                Assert.Equal(0, TrainCommand.Run(new TrainOptions(mode, "actor-critic", Days: 1, OutDir: dir, Json: true), stdout, new StringWriter()));
+                Assert.Equal(0, TrainCommand.Run(new TrainOptions(mode, "actor-critic", Days: 1, OutDir: dir, Json: true, WarmStartRule: mode == "centralized" ? TrainCommand.PeakRule : null), stdout, new StringWriter()));
                 using var doc = JsonDocument.Parse(stdout.ToString());
                 return doc.RootElement.GetProperty("finalDailyCost").GetDouble();
             }

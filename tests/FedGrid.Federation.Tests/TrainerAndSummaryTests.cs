@@ -55,6 +55,25 @@ public class TrainerAndSummaryTests
     }
 
     [Fact]
+    public void The_warm_start_rule_holds_load_at_the_peak_or_at_every_price_above_the_cheapest()
+    {
+        // The default scenario's time-of-use tariff (DefaultScenario: off-peak 0.10, shoulder 0.18, peak 0.38 $/kWh).
+        var tou = TwoDays.Tariff;
+        Assert.Equal(DefaultScenario.PeakPrice, TrainingDefaults.RuleThreshold(tou, TwoDays.SlotCount));
+        Assert.Equal(DefaultScenario.ShoulderPrice, TrainingDefaults.RuleThreshold(tou, TwoDays.SlotCount, WarmStartRule.CheapestPeriod));
+        // A single price: nothing to move to, the cheapest-period rule never holds load.
+        var flat = new FedGrid.Households.Tariffs.TimeOfUseTariff("flat", TwoDays.Calendar, "all day", 0.2, [], []);
+        Assert.Equal(double.PositiveInfinity, TrainingDefaults.RuleThreshold(flat, TwoDays.SlotCount, WarmStartRule.CheapestPeriod));
+        // Real-time prices: both rules take the forecast's 80th percentile.
+        var rt = FedGrid.Households.Tariffs.RealTimeTariff.Generate("rt", new FedGrid.Households.Tariffs.RealTimePriceModel(), TwoDays.SlotCount, 3);
+        Assert.Equal(TrainingDefaults.RuleThreshold(rt, TwoDays.SlotCount), TrainingDefaults.RuleThreshold(rt, TwoDays.SlotCount, WarmStartRule.CheapestPeriod));
+        // The trainer's day 1 is the rule's: the two rules give different days, the default is the cheapest-period rule.
+        DayMetrics Day1(WarmStartRule? rule) => new CentralizedTrainer(TwoDays, new TrainingOptions(LearnerKind.ActorCritic, 5, Rule: rule)).Train().Days[0];
+        Assert.Equal(Day1(WarmStartRule.CheapestPeriod), Day1(null));
+        Assert.True(Day1(WarmStartRule.CheapestPeriod).Bill < Day1(WarmStartRule.Peak).Bill);
+    }
+
+    [Fact]
     public void Evaluation_days_act_without_learning_and_leave_the_days_before_them_alone()
     {
         CentralizedTrainer Trainer(LearnerKind kind, ulong seed, int? evaluation) =>

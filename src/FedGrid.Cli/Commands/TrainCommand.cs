@@ -11,7 +11,7 @@ namespace FedGrid.Cli.Commands;
 /// <summary>Options of <c>fedgrid train</c>; null values take the defaults (or, with a scenario file, the file's).</summary>
 internal sealed record TrainOptions(string Mode, string Learner, string? ScenarioPath = null, string? Tariff = null, int? Days = null,
     ulong? Seed = null, string? OutDir = null, bool Json = false, FederatedTrainOptions? Federated = null, int? WarmStartDays = null,
-    int? EvaluationDays = null);
+    int? EvaluationDays = null, string? WarmStartRule = null);
 
 /// <summary>What a training mode hands back to the command for writing the run folder.</summary>
 /// <param name="Run">The learner's run.</param>
@@ -24,7 +24,7 @@ internal sealed record TrainOutcome(TrainingRun Run, TrainingSummary Summary, IR
 
 /// <summary>Everything a training mode gets from the command line.</summary>
 internal sealed record TrainContext(Scenario Scenario, LearnerKind Learner, ulong Seed, string Folder, TextWriter Progress,
-    FederatedTrainOptions? Federated = null, int? WarmStartDays = null, int? EvaluationDays = null)
+    FederatedTrainOptions? Federated = null, int? WarmStartDays = null, int? EvaluationDays = null, WarmStartRule? Rule = null)
 {
     /// <summary>The actor-critic's warm-start days in a run of <paramref name="days"/> days (the default when not given, at most the run).</summary>
     /// <param name="days">Days of the run.</param>
@@ -42,6 +42,8 @@ internal static class TrainCommand
     public const int DefaultDays = 60;
     public const string TimeOfUse = "time-of-use";
     public const string RealTime = "real-time";
+    public const string PeakRule = "peak";
+    public const string CheapestPeriodRule = "cheapest-period";
 
     /// <summary>The training modes: name → runner.</summary>
     public static readonly IReadOnlyList<KeyValuePair<string, Func<TrainContext, TrainOutcome>>> Modes =
@@ -68,15 +70,19 @@ internal static class TrainCommand
         {
             Description = $"centralized: last days on which the learner acts on what it learned, without exploring or learning (default {TrainingDefaults.EvaluationDays}; {TrainingSummary.FinalWindowDays} makes the final window an evaluation of the trained policy)",
         };
+        var rule = new Option<string?>("--warm-start-rule")
+        {
+            Description = $"centralized actor-critic: the warm start's price rule with time-of-use prices: {PeakRule} (hold flexible load at minimum at the peak price) or {CheapestPeriodRule} (at every price above the cheapest) (default {CheapestPeriodRule}; the federated warm start uses {PeakRule})",
+        };
         var (fedOptions, readFed) = TrainFederated.CreateOptions();
         var cmd = new Command("train", "Train a demand-response learner on the default scenario (or a scenario file) with the safety projection every slot; compare it with no control and the daily optimum on the same days.")
         {
-            mode, learner, scenario, tariff, days, seed, outDir, json, warm, evaluation,
+            mode, learner, scenario, tariff, days, seed, outDir, json, warm, evaluation, rule,
         };
         foreach (Option o in fedOptions) cmd.Options.Add(o);
         cmd.SetAction(parse => Run(new TrainOptions(parse.GetValue(mode)!, parse.GetValue(learner)!, parse.GetValue(scenario), parse.GetValue(tariff),
             parse.GetValue(days), parse.GetValue(seed), parse.GetValue(outDir), parse.GetValue(json), readFed(parse),
-            parse.GetValue(warm), parse.GetValue(evaluation)), Console.Out, Console.Error));
+            parse.GetValue(warm), parse.GetValue(evaluation), parse.GetValue(rule)), Console.Out, Console.Error));
         return cmd;
     }
 
@@ -98,6 +104,15 @@ internal static class TrainCommand
         if (options.EvaluationDays is { } ev && (ev < 0 || options.Mode != "centralized"))
             throw new UserInputException(ev < 0 ? $"--evaluation-days must be 0 or more, got {ev}"
                 : "--evaluation-days applies to --mode centralized only");
+        WarmStartRule? warmRule = options.WarmStartRule switch
+        {
+            null => null,
+            PeakRule => FedGrid.Federation.Training.WarmStartRule.Peak,
+            CheapestPeriodRule => FedGrid.Federation.Training.WarmStartRule.CheapestPeriod,
+            string other => throw new UserInputException($"--warm-start-rule: unknown rule '{other}'; use {PeakRule} or {CheapestPeriodRule}"),
+        };
+        if (warmRule is not null && (options.Mode != "centralized" || learner != LearnerKind.ActorCritic))
+            throw new UserInputException("--warm-start-rule applies to --mode centralized --learner actor-critic only");
         if (options.ScenarioPath is not null && options.Days is not null)
             throw new UserInputException("--scenario takes its days from the file: drop --days");
 
@@ -118,7 +133,7 @@ internal static class TrainCommand
             throw new UserInputException($"--out: cannot create the run folder '{dir}': {e.Message}");
         }
 
-        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated, options.WarmStartDays, options.EvaluationDays));
+        TrainOutcome outcome = runner(new TrainContext(scenario, learner, seed, dir, stderr, options.Federated, options.WarmStartDays, options.EvaluationDays, warmRule));
         var files = new List<KeyValuePair<string, string>> { new("folder", dir), new("daily", "daily.csv"), new("plot", "convergence.png") };
         files.AddRange(outcome.ExtraFiles);
         byte[] json = RunFolder.Write(dir, outcome.Run.Days, outcome.Summary, files, DemoCommand.Cautions);
@@ -166,7 +181,7 @@ internal static class TrainCommand
     {
         int days = c.Scenario.SlotCount / SlotCalendar.SlotsPerDay;
         var (noControl, oracle) = Baselines(c);
-        var trainOptions = new TrainingOptions(c.Learner, c.Seed, WarmStartDays: c.WarmStartDays, EvaluationDays: c.EvaluationDays);
+        var trainOptions = new TrainingOptions(c.Learner, c.Seed, WarmStartDays: c.WarmStartDays, EvaluationDays: c.EvaluationDays, Rule: c.Rule);
         var trainer = new CentralizedTrainer(c.Scenario, trainOptions);
         string name = LearnerNames.Of(c.Learner);
         TrainingRun run = trainer.Train(d => c.Progress.WriteLine(
@@ -174,7 +189,10 @@ internal static class TrainCommand
         var summary = TrainingSummary.Create("centralized", run, noControl, oracle, c.Scenario.Tariff.Name, c.Scenario.Name, c.Scenario.Households.Length, c.Seed);
         var extra = new List<KeyValuePair<string, object>>();
         if (c.Learner == LearnerKind.ActorCritic)
+        {
             extra.Add(new("warmStartDays", c.WarmStartDaysOf(days)));
+            extra.Add(new("warmStartRule", (c.Rule ?? TrainingDefaults.CentralizedWarmStartRule) == FedGrid.Federation.Training.WarmStartRule.Peak ? PeakRule : CheapestPeriodRule));
+        }
         extra.Add(new("evaluationDays", days - trainOptions.FirstEvaluationDay(days)));
         summary = summary with { Extra = extra };
         return new TrainOutcome(run, summary, noControl, oracle, []);

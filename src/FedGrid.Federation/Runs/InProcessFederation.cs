@@ -107,7 +107,7 @@ public sealed record FederatedRunResult(TrainingRun Run, string Scheme, int Roun
 /// </para>
 /// <para>
 /// Warm start (<see cref="FederationOptions.WarmStartSteps"/>): on those steps each simulated gateway runs the price rule
-/// of the centralized warm start (<see cref="PriceThresholdPolicy"/> with <see cref="TrainingDefaults.RuleThreshold"/>) on
+/// (<see cref="PriceThresholdPolicy"/> with <see cref="TrainingDefaults.RuleThreshold"/> of <see cref="WarmStartRule.Peak"/>) on
 /// its own readings and the public prices and hands its setpoint to its household machine as the step's demonstration.
 /// </para>
 /// </summary>
