@@ -11,14 +11,7 @@ internal sealed class HostProcess : IDisposable
     private HostProcess(string name, IEnumerable<string> prefix, IEnumerable<string> args)
     {
         Name = name;
-        string dll = typeof(FedGrid.Cli.Commands.LaunchCommand).Assembly.Location;
-        var all = prefix.Concat(["dotnet", dll]).Concat(args).ToList();
-        var info = new ProcessStartInfo(all[0]) { RedirectStandardOutput = true, RedirectStandardError = true, UseShellExecute = false };
-        foreach (string a in all.Skip(1))
-        {
-            info.ArgumentList.Add(a);
-        }
-        _p = new Process { StartInfo = info };
+        _p = new Process { StartInfo = CliRun.StartInfo(prefix, args) };
         DataReceivedEventHandler add = (_, e) =>
         {
             if (e.Data is not null)

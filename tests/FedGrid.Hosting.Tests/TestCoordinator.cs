@@ -59,19 +59,37 @@ internal sealed class TestCoordinator : IAsyncDisposable
     }
 
     /// <summary>Waits until the run has reached <paramref name="step"/>; fails (naming the log) when the run ends first or within 3 minutes does not get there.</summary>
-    public async Task WaitForStep(long step)
+    public Task WaitForStep(long step) => WaitUntil(s => s.Step >= step, $"step {step}");
+
+    /// <summary>Polls the coordinator's status until <paramref name="reached"/>; fails (naming <paramref name="what"/> and the log) when the run ends first or 3 minutes pass.</summary>
+    public async Task WaitUntil(Func<FedGrid.Hosting.Wire.RunStatus, bool> reached, string what)
     {
         using var channel = Channel();
         var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
         var watch = System.Diagnostics.Stopwatch.StartNew();
-        while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))).Step < step)
+        while (!reached(await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))))
         {
             if (Run.IsCompleted || watch.Elapsed > TimeSpan.FromMinutes(3))
             {
-                throw new TimeoutException($"the run {(Run.IsCompleted ? "ended" : "is still")} before step {step}; its log:\n{string.Join("\n", Snapshot())}");
+                throw new TimeoutException($"the run {(Run.IsCompleted ? "ended" : "is still going")} without reaching {what}; its log:\n{string.Join("\n", Snapshot())}");
             }
             await Task.Delay(20);
         }
+    }
+
+    /// <summary>
+    /// The end of a run in which household <paramref name="left"/> left for good: the run completes all
+    /// <paramref name="steps"/>, the leaving host ends with an error, every other host finishes. Returns the outcome and
+    /// the leaving host's error.
+    /// </summary>
+    public async Task<(CoordinatorOutcome Outcome, Exception Left)> CompletesWithout(Task[] hosts, int left, int steps, TimeSpan within)
+    {
+        CoordinatorOutcome outcome = await Run.WaitAsync(within);
+        Assert.True(outcome.Ok, outcome.Error);
+        Assert.Equal(steps, outcome.Steps);
+        Exception error = await EndsWithError(hosts[left], TimeSpan.FromMinutes(1));
+        await Task.WhenAll(hosts.Where((_, i) => i != left)).WaitAsync(TimeSpan.FromMinutes(1));
+        return (outcome, error);
     }
 
     /// <summary>
