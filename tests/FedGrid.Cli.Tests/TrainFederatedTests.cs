@@ -63,7 +63,7 @@ public class TrainFederatedTests
             var stdout = new StringWriter();
             try
             {
-                Assert.Equal(0, TrainCommand.Run(new TrainOptions(mode, "actor-critic", Days: 1, OutDir: dir, Json: true, WarmStartRule: mode == "centralized" ? TrainCommand.PeakRule : null), stdout, new StringWriter()));
+                Assert.Equal(0, TrainCommand.Run(new TrainOptions(mode, "actor-critic", Days: 1, OutDir: dir, Json: true, WarmStartRule: mode == "centralized" ? FedGrid.Federation.Training.WarmStartRuleNames.Of(FedGrid.Federation.Training.WarmStartRule.Peak) : null), stdout, new StringWriter()));
                 using var doc = JsonDocument.Parse(stdout.ToString());
                 return doc.RootElement.GetProperty("finalDailyCost").GetDouble();
             }

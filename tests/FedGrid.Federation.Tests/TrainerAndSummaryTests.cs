@@ -71,6 +71,10 @@ public class TrainerAndSummaryTests
         DayMetrics Day1(WarmStartRule? rule) => new CentralizedTrainer(TwoDays, new TrainingOptions(LearnerKind.ActorCritic, 5, Rule: rule)).Train().Days[0];
         Assert.Equal(Day1(WarmStartRule.CheapestPeriod), Day1(null));
         Assert.True(Day1(WarmStartRule.CheapestPeriod).Bill < Day1(WarmStartRule.Peak).Bill);
+        // The command-line and summary names.
+        foreach (WarmStartRule r in Enum.GetValues<WarmStartRule>()) Assert.Equal(r, WarmStartRuleNames.Parse(WarmStartRuleNames.Of(r)));
+        Assert.Equal("cheapest-period", WarmStartRuleNames.Of(WarmStartRule.CheapestPeriod));
+        Assert.Null(WarmStartRuleNames.Parse("Peak"));
     }
 
     [Fact]

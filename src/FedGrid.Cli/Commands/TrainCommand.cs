@@ -42,8 +42,6 @@ internal static class TrainCommand
     public const int DefaultDays = 60;
     public const string TimeOfUse = "time-of-use";
     public const string RealTime = "real-time";
-    public const string PeakRule = "peak";
-    public const string CheapestPeriodRule = "cheapest-period";
 
     /// <summary>The training modes: name → runner.</summary>
     public static readonly IReadOnlyList<KeyValuePair<string, Func<TrainContext, TrainOutcome>>> Modes =
@@ -72,7 +70,7 @@ internal static class TrainCommand
         };
         var rule = new Option<string?>("--warm-start-rule")
         {
-            Description = $"centralized actor-critic: the warm start's price rule with time-of-use prices: {PeakRule} (hold flexible load at minimum at the peak price) or {CheapestPeriodRule} (at every price above the cheapest) (default {CheapestPeriodRule}; the federated warm start uses {PeakRule})",
+            Description = $"centralized actor-critic: the warm start's price rule with time-of-use prices: {WarmStartRuleNames.Of(WarmStartRule.Peak)} (hold flexible load at minimum at the peak price) or {WarmStartRuleNames.Of(WarmStartRule.CheapestPeriod)} (at every price above the cheapest) (default {WarmStartRuleNames.Of(TrainingDefaults.CentralizedWarmStartRule)}; the federated warm start uses {WarmStartRuleNames.Of(WarmStartRule.Peak)})",
         };
         var (fedOptions, readFed) = TrainFederated.CreateOptions();
         var cmd = new Command("train", "Train a demand-response learner on the default scenario (or a scenario file) with the safety projection every slot; compare it with no control and the daily optimum on the same days.")
@@ -104,13 +102,8 @@ internal static class TrainCommand
         if (options.EvaluationDays is { } ev && (ev < 0 || options.Mode != "centralized"))
             throw new UserInputException(ev < 0 ? $"--evaluation-days must be 0 or more, got {ev}"
                 : "--evaluation-days applies to --mode centralized only");
-        WarmStartRule? warmRule = options.WarmStartRule switch
-        {
-            null => null,
-            PeakRule => FedGrid.Federation.Training.WarmStartRule.Peak,
-            CheapestPeriodRule => FedGrid.Federation.Training.WarmStartRule.CheapestPeriod,
-            string other => throw new UserInputException($"--warm-start-rule: unknown rule '{other}'; use {PeakRule} or {CheapestPeriodRule}"),
-        };
+        WarmStartRule? warmRule = options.WarmStartRule is not { } ruleName ? null : WarmStartRuleNames.Parse(ruleName)
+            ?? throw new UserInputException($"--warm-start-rule: unknown rule '{ruleName}'; use {WarmStartRuleNames.Of(FedGrid.Federation.Training.WarmStartRule.Peak)} or {WarmStartRuleNames.Of(FedGrid.Federation.Training.WarmStartRule.CheapestPeriod)}");
         if (warmRule is not null && (options.Mode != "centralized" || learner != LearnerKind.ActorCritic))
             throw new UserInputException("--warm-start-rule applies to --mode centralized --learner actor-critic only");
         if (options.ScenarioPath is not null && options.Days is not null)
@@ -191,7 +184,7 @@ internal static class TrainCommand
         if (c.Learner == LearnerKind.ActorCritic)
         {
             extra.Add(new("warmStartDays", c.WarmStartDaysOf(days)));
-            extra.Add(new("warmStartRule", (c.Rule ?? TrainingDefaults.CentralizedWarmStartRule) == FedGrid.Federation.Training.WarmStartRule.Peak ? PeakRule : CheapestPeriodRule));
+            extra.Add(new("warmStartRule", WarmStartRuleNames.Of(c.Rule ?? TrainingDefaults.CentralizedWarmStartRule)));
         }
         extra.Add(new("evaluationDays", days - trainOptions.FirstEvaluationDay(days)));
         summary = summary with { Extra = extra };

@@ -30,6 +30,26 @@ public enum WarmStartRule
     CheapestPeriod,
 }
 
+/// <summary>Names of the warm-start rules as used on the command line and in summaries.</summary>
+public static class WarmStartRuleNames
+{
+    /// <summary>"peak" or "cheapest-period".</summary>
+    public static string Of(WarmStartRule rule) => rule switch
+    {
+        WarmStartRule.Peak => "peak",
+        WarmStartRule.CheapestPeriod => "cheapest-period",
+        _ => throw new ArgumentOutOfRangeException(nameof(rule)),
+    };
+
+    /// <summary>The rule of a name, or null when unknown.</summary>
+    public static WarmStartRule? Parse(string name) => name switch
+    {
+        "peak" => WarmStartRule.Peak,
+        "cheapest-period" => WarmStartRule.CheapestPeriod,
+        _ => null,
+    };
+}
+
 /// <summary>Names of the learners as used on the command line and in summaries.</summary>
 public static class LearnerNames
 {
@@ -166,15 +186,15 @@ public static class TrainingDefaults
     public static double RuleThreshold(ITariff tariff, int slots, WarmStartRule rule = WarmStartRule.Peak)
     {
         ArgumentNullException.ThrowIfNull(tariff);
-        if (tariff is TimeOfUseTariff tou && rule == WarmStartRule.Peak) return tou.HighestPrice;
-        if (tariff is TimeOfUseTariff)
+        if (tariff is TimeOfUseTariff tou)
         {
-            double cheapest = double.PositiveInfinity, next = double.PositiveInfinity;
-            for (int t = 0; t < Math.Min(slots, 7 * SlotCalendar.SlotsPerDay); t++) cheapest = Math.Min(cheapest, tariff.PriceAt(t));
+            if (rule == WarmStartRule.Peak) return tou.HighestPrice;
+            double cheapest = double.PositiveInfinity, next = double.PositiveInfinity; // the two lowest distinct prices
             for (int t = 0; t < Math.Min(slots, 7 * SlotCalendar.SlotsPerDay); t++)
             {
-                double p = tariff.PriceAt(t);
-                if (p > cheapest) next = Math.Min(next, p);
+                double p = tou.PriceAt(t);
+                if (p < cheapest) (cheapest, next) = (p, cheapest);
+                else if (p > cheapest && p < next) next = p;
             }
             return next;
         }
