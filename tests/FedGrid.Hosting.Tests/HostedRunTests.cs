@@ -95,19 +95,9 @@ public sealed class HostedRunTests
         string result = Path.Combine(run.Folder, "coordinator.json"), transcript = Path.Combine(run.Folder, "run.fgt");
         HostProcess coordinator = run.Start("coordinator", ["coordinator", .. Small.ToArguments(), "--port", run.Port.ToString(System.Globalization.CultureInfo.InvariantCulture),
             "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "2", "--round-timeout", "10", "--rejoin-timeout", "5"]);
-        using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(run.Address);
-        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
-        async Task<FedGrid.Hosting.Wire.RunStatus?> Poll()
-        {
-            try { return await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest()); }
-            catch (Grpc.Core.RpcException) { return null; }
-        }
-        var deadline = DateTime.UtcNow.AddMinutes(2);
-        while (await Poll() is null && DateTime.UtcNow < deadline)
-            await Task.Delay(100);
+        await coordinator.WaitForLine("listening on", TimeSpan.FromSeconds(60));
         HostProcess[] households = [.. Small.CreateScenario().Households.Select(h => run.Start(h.Id, ["household", .. Small.ToArguments(), "--id", h.Id, "--coordinator", run.Address, "--insecure-loopback"]))];
-        while ((await Poll())?.Step is not >= 30 && DateTime.UtcNow < deadline && !coordinator.HasExited)
-            await Task.Delay(20);
+        await run.WaitForStep(coordinator, 30, TimeSpan.FromMinutes(2));
         households[2].Kill(); // SIGKILL on Linux
         Assert.Equal(0, await coordinator.WaitForExit(TimeSpan.FromMinutes(2)));
         CoordinatorOutcome outcome = Launcher.ReadOutcome(result);

@@ -29,6 +29,36 @@ internal sealed class ProcessRun : IDisposable
         return p;
     }
 
+    /// <summary>Polls the coordinator's status on <see cref="Address"/> until its step reaches <paramref name="step"/>.
+    /// A refused or failed poll is retried while the coordinator lives (it may not take connections yet); the test
+    /// fails with every process's output when the coordinator exits first or <paramref name="limit"/> passes.</summary>
+    public async Task WaitForStep(HostProcess coordinator, long step, TimeSpan limit)
+    {
+        using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(Address);
+        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
+        var watch = System.Diagnostics.Stopwatch.StartNew();
+        string? lastError = null;
+        while (true)
+        {
+            try
+            {
+                if ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))).Step >= step)
+                {
+                    return;
+                }
+            }
+            catch (Grpc.Core.RpcException e)
+            {
+                lastError = e.Status.ToString();
+            }
+            if (coordinator.HasExited || watch.Elapsed > limit)
+            {
+                throw new Xunit.Sdk.XunitException($"{coordinator.Name} did not reach step {step} ({(coordinator.HasExited ? "exited" : $"{limit.TotalSeconds:0} s passed")}; last poll error: {lastError ?? "none"})\n{Output()}");
+            }
+            await Task.Delay(20);
+        }
+    }
+
     /// <summary>Every process's output, for a failure message.</summary>
     public string Output() => string.Join("\n", _all.Select(p => p.Output()));
 

@@ -185,73 +185,50 @@ public sealed class StepDropoutRejoinTests(ITestOutputHelper output)
     {
         // Real OS processes: household H02's process is frozen (SIGSTOP) mid-round 1 until the coordinator has dropped it
         // at the step deadline, then continued (SIGCONT): it reads the drop notice and rejoins with the state it kept.
-        string dir = Directory.CreateTempSubdirectory("fedgrid-sigstop-").FullName;
-        string result = Path.Combine(dir, "result.json"), transcript = Path.Combine(dir, "run.fgt");
-        int port = Launcher.FreeLoopbackPort();
-        string address = $"http://127.0.0.1:{port}";
-        var all = new List<HostProcess>();
-        try
-        {
-            var coordinator = HostProcess.Start("coordinator", ["coordinator", .. Small.ToArguments(), "--port", port.ToString(System.Globalization.CultureInfo.InvariantCulture),
-                "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "10", "--round-timeout", "60"]);
-            all.Add(coordinator);
-            await coordinator.WaitForLine("listening on", TimeSpan.FromSeconds(60));
-            List<HostProcess> households = [.. Small.CreateScenario().Households.Select(h => HostProcess.Start(h.Id,
-                ["household", .. Small.ToArguments(), "--id", h.Id, "--coordinator", address, "--insecure-loopback"]))];
-            all.AddRange(households);
-            using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(address);
-            var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
-            var watch = System.Diagnostics.Stopwatch.StartNew();
-            while ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))).Step < 30)
-            {
-                Assert.True(watch.Elapsed < TimeSpan.FromMinutes(3) && !coordinator.HasExited, coordinator.Output());
-                await Task.Delay(20);
-            }
-            households[1].Signal("STOP");
-            await coordinator.WaitForLine("was dropped from round", TimeSpan.FromMinutes(2));
-            households[1].Signal("CONT");
+        using var run = new ProcessRun("fedgrid-sigstop-");
+        string result = Path.Combine(run.Folder, "result.json"), transcript = Path.Combine(run.Folder, "run.fgt");
+        var coordinator = run.Start("coordinator", ["coordinator", .. Small.ToArguments(), "--port", run.Port.ToString(System.Globalization.CultureInfo.InvariantCulture),
+            "--insecure-loopback", "--result", result, "--transcript", transcript, "--step-timeout", "10", "--round-timeout", "60"]);
+        await coordinator.WaitForLine("listening on", TimeSpan.FromSeconds(60));
+        List<HostProcess> households = [.. Small.CreateScenario().Households.Select(h => run.Start(h.Id,
+            ["household", .. Small.ToArguments(), "--id", h.Id, "--coordinator", run.Address, "--insecure-loopback"]))];
+        await run.WaitForStep(coordinator, 30, TimeSpan.FromMinutes(3));
+        households[1].Signal("STOP");
+        await coordinator.WaitForLine("was dropped from round", TimeSpan.FromMinutes(2));
+        households[1].Signal("CONT");
 
-            Assert.True(await coordinator.WaitForExit(TimeSpan.FromMinutes(4)) == 0, string.Join("\n", all.Select(p => p.Output())));
-            foreach (HostProcess h in households)
-            {
-                Assert.True(await h.WaitForExit(TimeSpan.FromMinutes(1)) == 0, h.Output());
-                Assert.True(h.Logged("finished after 96 steps"), h.Output());
-            }
-            Assert.True(households[1].Logged("after a step dropout"), households[1].Output());
-            CoordinatorOutcome outcome = Launcher.ReadOutcome(result);
-            Assert.True(outcome.Ok, outcome.Error);
-            Assert.Equal(96, outcome.Steps);
-
-            using TranscriptReader reader = TranscriptReader.Open(transcript);
-            var records = reader.Records().ToList();
-            TranscriptRecord drop = Assert.Single(records, r => r.Event?.Kind == EventKind.StepDropout);
-            Assert.Equal([1], drop.Event.Households);
-            TranscriptRecord rejoined = Assert.Single(records, r => r.Event?.Kind == EventKind.Rejoined);
-            Assert.Equal([1], rejoined.Event.Households);
-            Assert.Equal(drop.Round + 1, rejoined.Round); // at the next round start, as in one process
-            // Where the freeze caught it (the transcript says which phase's deadline it missed) gives the in-process script.
-            DropoutPoint point = drop.Event.Detail.Contains("projection inputs", StringComparison.Ordinal) ? DropoutPoint.BeforeProjectionInputs : DropoutPoint.BeforePartialSums;
-            List<ScriptedDropout> script = [new ScriptedDropout(1, drop.Step, point)];
-            // A freeze that landed at the previous round's end, before the upload (seen in CI): that round closed without
-            // it at the upload deadline (the household stays a member), and the next step's deadline dropped it.
-            bool uploadLost = drop.Round > 0 && !records.Single(r => r.Round == drop.Round - 1 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households.Contains(1);
-            if (uploadLost)
-            {
-                script.Insert(0, new ScriptedDropout(1, (long)drop.Round * Small.StepsPerRound - 1, DropoutPoint.BeforeUpload));
-            }
-            string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with { ScriptedDropouts = script }).ModelSha256);
-            output.WriteLine($"SIGSTOP caught H02 at step {drop.Step} ({point}{(uploadLost ? ", its round-" + (drop.Round - 1) + " upload lost" : "")}); rejoined in round {rejoined.Round}; model {outcome.ModelSha256}");
-            Assert.True(inProcess == outcome.ModelSha256, $"dropped at step {drop.Step} ({point}): hosted {outcome.ModelSha256}, in process {inProcess}");
-        }
-        finally
+        Assert.True(await coordinator.WaitForExit(TimeSpan.FromMinutes(4)) == 0, run.Output());
+        foreach (HostProcess h in households)
         {
-            foreach (HostProcess p in all)
-            {
-                if (!p.HasExited) { try { p.Signal("CONT"); } catch (InvalidOperationException) { } }
-                p.Dispose();
-            }
-            Directory.Delete(dir, recursive: true);
+            Assert.True(await h.WaitForExit(TimeSpan.FromMinutes(1)) == 0, h.Output());
+            Assert.True(h.Logged("finished after 96 steps"), h.Output());
         }
+        Assert.True(households[1].Logged("after a step dropout"), households[1].Output());
+        CoordinatorOutcome outcome = Launcher.ReadOutcome(result);
+        Assert.True(outcome.Ok, outcome.Error);
+        Assert.Equal(96, outcome.Steps);
+
+        using TranscriptReader reader = TranscriptReader.Open(transcript);
+        var records = reader.Records().ToList();
+        TranscriptRecord drop = Assert.Single(records, r => r.Event?.Kind == EventKind.StepDropout);
+        Assert.Equal([1], drop.Event.Households);
+        TranscriptRecord rejoined = Assert.Single(records, r => r.Event?.Kind == EventKind.Rejoined);
+        Assert.Equal([1], rejoined.Event.Households);
+        Assert.Equal(drop.Round + 1, rejoined.Round); // at the next round start, as in one process
+        // Where the freeze caught it (the transcript says which phase's deadline it missed) gives the in-process script.
+        DropoutPoint point = drop.Event.Detail.Contains("projection inputs", StringComparison.Ordinal) ? DropoutPoint.BeforeProjectionInputs : DropoutPoint.BeforePartialSums;
+        List<ScriptedDropout> script = [new ScriptedDropout(1, drop.Step, point)];
+        // A freeze that landed at the previous round's end, before the upload (seen in CI): that round closed without
+        // it at the upload deadline (the household stays a member), and the next step's deadline dropped it.
+        bool uploadLost = drop.Round > 0 && !records.Single(r => r.Round == drop.Round - 1 && r.Event?.Kind == EventKind.RoundAggregated).Event.Households.Contains(1);
+        if (uploadLost)
+        {
+            script.Insert(0, new ScriptedDropout(1, (long)drop.Round * Small.StepsPerRound - 1, DropoutPoint.BeforeUpload));
+        }
+        string inProcess = Convert.ToHexStringLower(Small.RunInProcess(o => o with { ScriptedDropouts = script }).ModelSha256);
+        output.WriteLine($"SIGSTOP caught H02 at step {drop.Step} ({point}{(uploadLost ? ", its round-" + (drop.Round - 1) + " upload lost" : "")}); rejoined in round {rejoined.Round}; model {outcome.ModelSha256}");
+        Assert.True(inProcess == outcome.ModelSha256, $"dropped at step {drop.Step} ({point}): hosted {outcome.ModelSha256}, in process {inProcess}");
+        // Disposing the run kills every process left (SIGKILL ends a stopped process too).
     }
 
     [Fact]
