@@ -35,28 +35,8 @@ internal sealed class ProcessRun : IDisposable
     public async Task WaitForStep(HostProcess coordinator, long step, TimeSpan limit)
     {
         using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(Address);
-        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
-        var watch = System.Diagnostics.Stopwatch.StartNew();
-        string? lastError = null;
-        while (true)
-        {
-            try
-            {
-                if ((await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))).Step >= step)
-                {
-                    return;
-                }
-            }
-            catch (Grpc.Core.RpcException e)
-            {
-                lastError = e.Status.ToString();
-            }
-            if (coordinator.HasExited || watch.Elapsed > limit)
-            {
-                throw new Xunit.Sdk.XunitException($"{coordinator.Name} did not reach step {step} ({(coordinator.HasExited ? "exited" : $"{limit.TotalSeconds:0} s passed")}; last poll error: {lastError ?? "none"})\n{Output()}");
-            }
-            await Task.Delay(20);
-        }
+        await StatusPoll.Until(channel, s => s.Step >= step, () => coordinator.HasExited, limit,
+            exited => $"{coordinator.Name} did not reach step {step} ({(exited ? "exited" : $"{limit.TotalSeconds:0} s passed")})\n{Output()}");
     }
 
     /// <summary>Every process's output, for a failure message.</summary>

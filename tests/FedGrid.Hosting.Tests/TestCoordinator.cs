@@ -61,20 +61,12 @@ internal sealed class TestCoordinator : IAsyncDisposable
     /// <summary>Waits until the run has reached <paramref name="step"/>; fails (naming the log) when the run ends first or within 3 minutes does not get there.</summary>
     public Task WaitForStep(long step) => WaitUntil(s => s.Step >= step, $"step {step}");
 
-    /// <summary>Polls the coordinator's status until <paramref name="reached"/>; fails (naming <paramref name="what"/> and the log) when the run ends first or 3 minutes pass.</summary>
+    /// <summary>Polls the coordinator's status (<see cref="StatusPoll"/>) until <paramref name="reached"/>; fails (naming <paramref name="what"/> and the log) when the run ends first or 3 minutes pass.</summary>
     public async Task WaitUntil(Func<FedGrid.Hosting.Wire.RunStatus, bool> reached, string what)
     {
         using var channel = Channel();
-        var status = new FedGrid.Hosting.Wire.FederationHost.FederationHostClient(channel);
-        var watch = System.Diagnostics.Stopwatch.StartNew();
-        while (!reached(await status.StatusAsync(new FedGrid.Hosting.Wire.StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))))
-        {
-            if (Run.IsCompleted || watch.Elapsed > TimeSpan.FromMinutes(3))
-            {
-                throw new TimeoutException($"the run {(Run.IsCompleted ? "ended" : "is still going")} without reaching {what}; its log:\n{string.Join("\n", Snapshot())}");
-            }
-            await Task.Delay(20);
-        }
+        await StatusPoll.Until(channel, reached, () => Run.IsCompleted, TimeSpan.FromMinutes(3),
+            ended => $"the run {(ended ? "ended" : "is still going")} without reaching {what}; its log:\n{string.Join("\n", Snapshot())}");
     }
 
     /// <summary>

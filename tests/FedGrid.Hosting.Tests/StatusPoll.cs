@@ -1,0 +1,40 @@
+using FedGrid.Hosting.Wire;
+using Grpc.Net.Client;
+
+namespace FedGrid.Hosting.Tests;
+
+/// <summary>The one status poll of the hosting tests, for a coordinator in the test process or in its own.</summary>
+internal static class StatusPoll
+{
+    /// <summary>
+    /// Polls the coordinator's status on <paramref name="channel"/> until <paramref name="reached"/>. A refused or failed
+    /// poll is retried (the coordinator may not take connections yet); fails with <paramref name="failure"/>'s text and
+    /// the last poll error when <paramref name="ended"/> says the run is over first or <paramref name="limit"/> passes.
+    /// </summary>
+    public static async Task Until(GrpcChannel channel, Func<RunStatus, bool> reached, Func<bool> ended, TimeSpan limit, Func<bool, string> failure)
+    {
+        var status = new FederationHost.FederationHostClient(channel);
+        var watch = System.Diagnostics.Stopwatch.StartNew();
+        string? lastError = null;
+        while (true)
+        {
+            try
+            {
+                if (reached(await status.StatusAsync(new StatusRequest(), deadline: DateTime.UtcNow.AddSeconds(30))))
+                {
+                    return;
+                }
+            }
+            catch (Grpc.Core.RpcException e)
+            {
+                lastError = e.Status.ToString();
+            }
+            bool over = ended();
+            if (over || watch.Elapsed > limit)
+            {
+                throw new TimeoutException($"{failure(over)} (last poll error: {lastError ?? "none"})");
+            }
+            await Task.Delay(20);
+        }
+    }
+}
