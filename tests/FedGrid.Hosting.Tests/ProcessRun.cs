@@ -36,7 +36,7 @@ internal sealed class ProcessRun : IDisposable
     {
         using var channel = Grpc.Net.Client.GrpcChannel.ForAddress(Address);
         await StatusPoll.Until(channel, s => s.Step >= step, () => coordinator.HasExited, limit,
-            exited => $"{coordinator.Name} did not reach step {step} ({(exited ? "exited" : $"{limit.TotalSeconds:0} s passed")})\n{Output()}");
+            exited => $"{coordinator.Name} did not reach step {step} ({(exited ? "exited" : $"{limit.TotalSeconds:0} s passed")})", Output);
     }
 
     /// <summary>Every process's output, for a failure message.</summary>

@@ -8,10 +8,12 @@ internal static class StatusPoll
 {
     /// <summary>
     /// Polls the coordinator's status on <paramref name="channel"/> until <paramref name="reached"/>. A refused or failed
-    /// poll is retried (the coordinator may not take connections yet); fails with <paramref name="failure"/>'s text and
-    /// the last poll error when <paramref name="ended"/> says the run is over first or <paramref name="limit"/> passes.
+    /// poll is retried (the coordinator may not take connections yet). When <paramref name="ended"/> says the run is over
+    /// first or <paramref name="limit"/> passes, fails with <paramref name="failure"/>'s headline and the last poll error
+    /// on the first line, then <paramref name="output"/> (the processes' output or the in-process log).
     /// </summary>
-    public static async Task Until(GrpcChannel channel, Func<RunStatus, bool> reached, Func<bool> ended, TimeSpan limit, Func<bool, string> failure)
+    public static async Task Until(GrpcChannel channel, Func<RunStatus, bool> reached, Func<bool> ended, TimeSpan limit,
+        Func<bool, string> failure, Func<string> output)
     {
         var status = new FederationHost.FederationHostClient(channel);
         var watch = System.Diagnostics.Stopwatch.StartNew();
@@ -32,7 +34,7 @@ internal static class StatusPoll
             bool over = ended();
             if (over || watch.Elapsed > limit)
             {
-                throw new TimeoutException($"{failure(over)} (last poll error: {lastError ?? "none"})");
+                throw new TimeoutException($"{failure(over)} (last poll error: {lastError ?? "none"})\n{output()}");
             }
             await Task.Delay(20);
         }

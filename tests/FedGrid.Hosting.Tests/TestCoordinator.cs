@@ -66,7 +66,7 @@ internal sealed class TestCoordinator : IAsyncDisposable
     {
         using var channel = Channel();
         await StatusPoll.Until(channel, reached, () => Run.IsCompleted, TimeSpan.FromMinutes(3),
-            ended => $"the run {(ended ? "ended" : "is still going")} without reaching {what}; its log:\n{string.Join("\n", Snapshot())}");
+            ended => $"the run {(ended ? "ended" : "is still going")} without reaching {what}", () => "its log:\n" + string.Join("\n", Snapshot()));
     }
 
     /// <summary>
